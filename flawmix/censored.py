@@ -1,0 +1,93 @@
+"""Right-censored two-parameter Weibull MLE, vectorised across data sets.
+
+For one population the likelihood profile reduces to one equation in the modulus m
+(DOMAIN.md section 3, ASTM C1239 / ISO 20501 censored MLE):
+    Σ_all w σ^m ln σ / Σ_all σ^m − Σ_fail w ln σ / r − 1/m = 0,  σθ = (Σ_all σ^m / r)^(1/m),
+with failure weights w (1 for a failure of this population, 0 for a suspended specimen,
+fractional inside EM). The left side increases with m, so a safeguarded Newton iteration in
+ln m converges to the unique root; no root means the estimate is unbounded.
+"""
+from __future__ import annotations
+
+import numpy as np
+
+from .likelihood import LOG_MODULUS_MAX, LOG_MODULUS_MIN
+
+
+def censored_weibull_mle(log_strength, failure_weight, *, tol: float = 1e-12, max_iter: int = 100,
+                         log_modulus_start=None):
+    """Weibull MLE of each data set along the last axis.
+
+    Args:
+        log_strength: (..., N) ln σ of every specimen (failures and suspended alike).
+        failure_weight: (..., N) weight of each specimen as a failure of this population
+            (0 = suspended/censored, 1 = failure, fractions allowed).
+    Returns:
+        (log_modulus, log_scale, at_bound): arrays of shape (...). ``at_bound`` marks data
+        sets with no finite root (all failure weight at the largest strength): their
+        modulus is returned at the search bound.
+    """
+    y = np.asarray(log_strength, dtype=float)
+    w = np.asarray(failure_weight, dtype=float)
+    y, w = np.broadcast_arrays(y, w)
+    shape = y.shape[:-1]
+    y = y.reshape(-1, y.shape[-1])
+    w = w.reshape(-1, w.shape[-1])
+    top = y.max(axis=-1, keepdims=True)
+    x = y - top                                  # <= 0, so exp(m x) never overflows
+    r = w.sum(axis=-1)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        xbar = (w * x).sum(axis=-1) / r
+        # Start from the moment estimate std(ln σ) = π / (m √6) over the failures.
+        var = (w * (x - xbar[..., None]) ** 2).sum(axis=-1) / r
+        u = np.log(np.clip(1.2825 / np.sqrt(np.where(var > 0, var, 1e-12)), 0.1, 900.0))
+    if log_modulus_start is not None:
+        u = np.broadcast_to(np.asarray(log_modulus_start, dtype=float), shape).reshape(-1).copy()
+    lo = np.full(u.shape, LOG_MODULUS_MIN)
+    hi = np.full(u.shape, LOG_MODULUS_MAX)
+    unbounded = ~(xbar < -1e-15 * np.maximum(1.0, np.abs(top[..., 0])))
+    u = np.where(unbounded, LOG_MODULUS_MAX, u)
+    active = ~unbounded & (r > 0)
+    for _ in range(max_iter):
+        if not active.any():
+            break
+        ua = u[active]
+        xa = x[active]
+        m = np.exp(ua)
+        e = np.exp(m[..., None] * xa)
+        s0 = e.sum(axis=-1)
+        mean = (e * xa).sum(axis=-1) / s0
+        second = (e * xa * xa).sum(axis=-1) / s0
+        g = mean - xbar[active] - 1.0 / m
+        dg_du = m * (second - mean * mean + 1.0 / (m * m))
+        # keep a bracket: g increases with u
+        lo_a = np.where(g < 0, ua, lo[active])
+        hi_a = np.where(g > 0, ua, hi[active])
+        step = np.clip(-g / dg_du, -1.0, 1.0)
+        done = (np.abs(g) * m <= tol) | (np.abs(step) <= 1e-15)
+        new = ua + step
+        # Newton left the bracket: bisect instead (never for converged sets, whose
+        # bracket may have collapsed onto the root).
+        outside = ((new < lo_a) | (new > hi_a)) & ~done
+        new = np.where(outside, 0.5 * (lo_a + hi_a), new)
+        lo[active], hi[active] = lo_a, hi_a
+        u[active] = new
+        idx = np.flatnonzero(active)
+        active[idx[done]] = False
+    m = np.exp(u)
+    e = np.exp(m[..., None] * x)
+    with np.errstate(divide="ignore"):
+        v = top[..., 0] + np.log(e.sum(axis=-1) / r) / m
+    return u.reshape(shape), v.reshape(shape), unbounded.reshape(shape)
+
+
+def weibull_regression(log_strength_failures, probabilities):
+    """Least squares of ln ln 1/(1−P) on ln σ: slope = modulus, σθ = exp(−intercept/m).
+
+    The classical graphical estimate, kept for comparison with the MLE.
+    Returns (modulus, characteristic_strength).
+    """
+    x = np.asarray(log_strength_failures, dtype=float)
+    yy = np.log(-np.log1p(-np.asarray(probabilities, dtype=float)))
+    slope, intercept = np.polyfit(x, yy, 1)
+    return float(slope), float(np.exp(-intercept / slope))

@@ -1,0 +1,50 @@
+"""``flawmix.fit``: one entry point that dispatches to the estimator asked for."""
+from __future__ import annotations
+
+from .errors import FlawmixError
+from .result import FitResult
+from .specimens import Specimens, read_specimens
+
+METHODS = ("mle",)
+MODELS = ("concurrent",)
+
+
+def fit(
+    specimens,
+    method: str = "mle",
+    model: str = "concurrent",
+    confidence: float = 0.90,
+    *,
+    intervals: str = "auto",
+    positions: str = "hazen",
+    common_modulus: bool = False,
+    **read_options,
+) -> FitResult:
+    """Fit every flaw population of a specimen set.
+
+    Args:
+        specimens: a :class:`Specimens` (from :func:`read_specimens`), or anything
+            ``read_specimens`` accepts (path or DataFrame) together with its options.
+        method: ``"mle"`` (competing-risk censored maximum likelihood).
+        model: ``"concurrent"``: every specimen carries every population.
+        confidence: two-sided level of the intervals (0.90 gives 5 % / 95 % bounds).
+        intervals: ``auto`` (pivotal bounds for one complete population, profile likelihood
+            otherwise, Wald beyond 20 000 specimens), ``profile``, ``wald``, ``pivotal``, ``none``.
+        positions: plotting-position rule for the graphical comparison estimate:
+            ``hazen`` (i − 0.5)/N, ``mean-rank`` i/(N + 1), ``median-rank`` (i − 0.3)/(N + 0.4).
+        common_modulus: impose one modulus on all populations.
+    """
+    if not isinstance(specimens, Specimens):
+        specimens = read_specimens(specimens, **read_options)
+    elif read_options:
+        raise FlawmixError(f"options {', '.join(read_options)} apply only when fit() reads the table itself")
+    method = str(method).lower()
+    model = str(model).lower()
+    if method not in METHODS:
+        raise FlawmixError(f"unknown method '{method}'; use one of {', '.join(METHODS)}")
+    if model not in MODELS:
+        raise FlawmixError(f"unknown model '{model}'; use one of {', '.join(MODELS)}")
+    from .mle import fit_concurrent_mle
+
+    return fit_concurrent_mle(specimens, confidence, intervals=intervals, positions=positions,
+                              common_modulus=common_modulus)

@@ -1,0 +1,132 @@
+"""The likelihood of competing flaw populations: the one place the model's math lives.
+
+Parameters of population j are held as ``log_modulus`` u_j = ln m_j and ``log_scale``
+v_j = ln σθ_j (σθ in the specimens' unit). Per specimen (DOMAIN.md section 2):
+failed with candidate set C -> ln Σ_{j∈C} h_j(σ) + ln S(σ); survived -> ln S(σ);
+concurrent: S = exp(-Σ_j (σ/σθ_j)^m_j), h_j = (m_j/σ)(σ/σθ_j)^m_j.
+MLE, Bayes, bootstrap and simulation all call these functions.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+LOG_MODULUS_MAX = np.log(1000.0)   # a modulus this high means "no scatter": treat as a bound
+LOG_MODULUS_MIN = np.log(0.05)
+
+
+@dataclass(frozen=True)
+class Data:
+    """Arrays the likelihood needs, prepared once.
+
+    y: (..., N) log strength; failed: (..., N) bool; candidates: (..., N, k) bool.
+    Leading dimensions (if any) index replicate data sets.
+    """
+
+    y: np.ndarray
+    failed: np.ndarray
+    candidates: np.ndarray
+
+    @classmethod
+    def from_specimens(cls, specimens) -> "Data":
+        return cls(np.log(specimens.strength), specimens.failed.copy(), specimens.candidates.copy())
+
+    @property
+    def k(self) -> int:
+        return self.candidates.shape[-1]
+
+    @property
+    def certain(self) -> bool:
+        """True when every failure has exactly one candidate population."""
+        c = self.candidates.sum(axis=-1)
+        return bool(np.all(c[self.failed] == 1))
+
+
+def _masked_logsumexp(logh: np.ndarray, mask: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """ln Σ_{j: mask} exp(logh_j) over the last axis, and the normalised weights."""
+    masked = np.where(mask, logh, -np.inf)
+    top = masked.max(axis=-1, keepdims=True)
+    top = np.where(np.isfinite(top), top, 0.0)
+    e = np.exp(masked - top)
+    s = e.sum(axis=-1, keepdims=True)
+    with np.errstate(divide="ignore"):
+        lse = (top + np.log(s))[..., 0]
+    return lse, e / np.where(s > 0, s, 1.0)
+
+
+def concurrent_pointwise(data: Data, log_modulus, log_scale) -> np.ndarray:
+    """Per-specimen log-likelihood of the concurrent model.
+
+    log_modulus, log_scale: (..., k) parameter sets (leading dims broadcast against the
+    data's leading dims). Returns (..., N).
+    """
+    u = np.asarray(log_modulus, dtype=float)
+    v = np.asarray(log_scale, dtype=float)
+    m = np.exp(u)[..., None, :]
+    y = data.y[..., :, None]
+    z = m * (y - v[..., None, :])
+    with np.errstate(over="ignore"):
+        H = np.exp(z)
+    logh = u[..., None, :] - y + z
+    lse, _ = _masked_logsumexp(logh, data.candidates)
+    return np.where(data.failed, lse, 0.0) - H.sum(axis=-1)
+
+
+def concurrent_loglik(data: Data, log_modulus, log_scale) -> np.ndarray:
+    """Total log-likelihood, shape (...) for parameter sets of shape (..., k)."""
+    return concurrent_pointwise(data, log_modulus, log_scale).sum(axis=-1)
+
+
+def concurrent_derivatives(data: Data, theta: np.ndarray) -> tuple[float, np.ndarray, np.ndarray]:
+    """Log-likelihood, gradient (2k,) and Hessian (2k, 2k) at theta = [u_1..u_k, v_1..v_k].
+
+    Single data set only (no leading dims). Derivation in DEVELOPERS.md ("Likelihood
+    derivatives"); tests check it against finite differences.
+    """
+    k = data.k
+    u, v = theta[:k], theta[k:]
+    m = np.exp(u)
+    y = data.y
+    z = m * (y[:, None] - v)
+    with np.errstate(over="ignore"):
+        H = np.exp(z)
+    F = data.failed
+    yF, cF, zF = y[F], data.candidates[F], z[F]
+    logh = u - yF[:, None] + zF
+    lse, pi = _masked_logsumexp(logh, cF)
+    ll = float(lse.sum() - H.sum())
+
+    Hz = H * z
+    a = pi * (1.0 + zF)          # ḡ_i components along u_j
+    b = -pi * m                  # ḡ_i components along v_j
+    grad = np.empty(2 * k)
+    grad[:k] = a.sum(axis=0) - Hz.sum(axis=0)
+    grad[k:] = m * (H.sum(axis=0) - pi.sum(axis=0))
+
+    sum_pi = pi.sum(axis=0)
+    sum_H = H.sum(axis=0)
+    hess = np.empty((2 * k, 2 * k))
+    uu = -(a.T @ a)
+    uv = -(a.T @ b)
+    vv = -(b.T @ b)
+    idx = np.arange(k)
+    uu[idx, idx] += (pi * (zF + (1.0 + zF) ** 2)).sum(axis=0) - (Hz * (z + 1.0)).sum(axis=0)
+    uv[idx, idx] += -m * (pi * (2.0 + zF)).sum(axis=0) + m * (H * (z + 1.0)).sum(axis=0)
+    vv[idx, idx] += m**2 * (sum_pi - sum_H)
+    hess[:k, :k] = uu
+    hess[:k, k:] = uv
+    hess[k:, :k] = uv.T
+    hess[k:, k:] = vv
+    return ll, grad, hess
+
+
+def responsibilities(data: Data, log_modulus, log_scale) -> np.ndarray:
+    """(..., N, k) probability that population j caused failure i (0 for survivors)."""
+    u = np.asarray(log_modulus, dtype=float)
+    v = np.asarray(log_scale, dtype=float)
+    m = np.exp(u)[..., None, :]
+    y = data.y[..., :, None]
+    logh = u[..., None, :] - y + m * (y - v[..., None, :])
+    _, pi = _masked_logsumexp(logh, data.candidates)
+    return np.where(data.failed[..., None], pi, 0.0)

@@ -1,0 +1,51 @@
+"""Plotting positions and Johnson's adjusted ranks for Weibull probability plots."""
+from __future__ import annotations
+
+import numpy as np
+
+from .errors import FlawmixError
+
+# name -> (a, b) in P = (i − a)/(N + b)
+POSITION_RULES = {
+    "hazen": (0.5, 0.0),        # (i − 0.5)/N, used by ASTM C1239 and ISO 20501 [mem]
+    "mean-rank": (0.0, 1.0),    # i/(N + 1)
+    "median-rank": (0.3, 0.4),  # (i − 0.3)/(N + 0.4), Benard's approximation
+}
+
+
+def position_rule(name: str) -> tuple[float, float]:
+    try:
+        return POSITION_RULES[name]
+    except KeyError:
+        raise FlawmixError(
+            f"unknown plotting-position rule '{name}'; use one of {', '.join(POSITION_RULES)}"
+        ) from None
+
+
+def plotting_positions(ranks, n: int, rule: str = "hazen") -> np.ndarray:
+    """Failure probability for (possibly fractional) ranks among n specimens."""
+    a, b = position_rule(rule)
+    return (np.asarray(ranks, dtype=float) - a) / (n + b)
+
+
+def adjusted_ranks(strength, is_failure) -> tuple[np.ndarray, np.ndarray]:
+    """Johnson's adjusted ranks of the failures of one population.
+
+    All N specimens are sorted by strength (at ties, failures first); the reverse rank k
+    is N for the weakest; at each failure i_j = i_{j−1} + (N + 1 − i_{j−1})/(1 + k_j).
+    Returns (indices of the failures in input order of rising strength, their ranks).
+    """
+    s = np.asarray(strength, dtype=float)
+    f = np.asarray(is_failure, dtype=bool)
+    n = s.size
+    order = np.lexsort((~f, s))          # by strength, failures before suspensions at ties
+    reverse = n - np.arange(n)           # N for the weakest
+    f_sorted = f[order]
+    ranks = np.empty(int(f.sum()))
+    previous = 0.0
+    j = 0
+    for pos in np.flatnonzero(f_sorted):
+        previous = previous + (n + 1 - previous) / (1 + reverse[pos])
+        ranks[j] = previous
+        j += 1
+    return order[f_sorted], ranks

@@ -1,0 +1,267 @@
+"""Immutable fit results: estimates, intervals, tests; they print, export and answer
+distribution questions (cdf, sf, ppf) like a frozen scipy distribution."""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from . import distributions as dist
+from .errors import FlawmixError
+
+
+def _num(x):
+    """JSON-safe number: None for missing or infinite values."""
+    if x is None:
+        return None
+    x = float(x)
+    return x if math.isfinite(x) else None
+
+
+@dataclass(frozen=True)
+class PopulationEstimate:
+    """One flaw population's fitted Weibull distribution.
+
+    ``modulus`` m and ``characteristic_strength`` σθ (63.2 % failure probability of the
+    tested specimen geometry when this population acts alone), with intervals at the
+    result's confidence. ``n_failures`` counts failures attributed with certainty;
+    ``expected_failures`` adds the fitted shares of unidentified and ambiguous ones.
+    """
+
+    name: str
+    kind: str
+    n_failures: int
+    n_possible: int
+    expected_failures: float
+    modulus: float
+    characteristic_strength: float
+    modulus_interval: tuple[float, float]
+    strength_interval: tuple[float, float]
+    interval_method: str
+    modulus_unbiased: float | None = None
+    regression_modulus: float | None = None
+    regression_strength: float | None = None
+    at_bound: bool = False
+
+    # scipy.stats-like questions for this population acting alone
+    def cdf(self, stress):
+        return 1.0 - self.sf(stress)
+
+    def sf(self, stress):
+        return np.exp(-dist.weibull_cumulative_hazard(stress, self.modulus, self.characteristic_strength))
+
+    def ppf(self, probability):
+        p = np.asarray(probability, dtype=float)
+        return self.characteristic_strength * (-np.log1p(-p)) ** (1.0 / self.modulus)
+
+    def rvs(self, size=None, random_state=None):
+        rng = np.random.default_rng(random_state)
+        return self.characteristic_strength * rng.weibull(self.modulus, size)
+
+    def to_dict(self) -> dict[str, Any]:
+        return {
+            "name": self.name,
+            "kind": self.kind,
+            "n_failures": int(self.n_failures),
+            "expected_failures": _num(self.expected_failures),
+            "modulus": _num(self.modulus),
+            "characteristic_strength": _num(self.characteristic_strength),
+            "modulus_interval": [_num(x) for x in self.modulus_interval],
+            "strength_interval": [_num(x) for x in self.strength_interval],
+            "interval_method": self.interval_method,
+            "modulus_unbiased": _num(self.modulus_unbiased),
+            "regression_modulus": _num(self.regression_modulus),
+            "regression_strength": _num(self.regression_strength),
+            "at_bound": bool(self.at_bound),
+        }
+
+
+@dataclass(frozen=True)
+class HypothesisTest:
+    name: str
+    statistic: float
+    df: int
+    p_value: float
+    method: str
+    meaning: str
+
+    def to_dict(self) -> dict[str, Any]:
+        return {"name": self.name, "statistic": _num(self.statistic), "df": self.df,
+                "p_value": _num(self.p_value), "method": self.method, "meaning": self.meaning}
+
+
+@dataclass(frozen=True)
+class FitResult:
+    """Everything a fit learned. Build with :func:`flawmix.fit`; never half-built."""
+
+    method: str
+    model: str
+    confidence: float
+    unit: str
+    populations: tuple[PopulationEstimate, ...]
+    n_specimens: int
+    n_failed: int
+    n_survived: int
+    n_unidentified: int
+    n_ambiguous: int
+    log_likelihood: float
+    n_parameters: int
+    tests: tuple[HypothesisTest, ...] = ()
+    warnings: tuple[str, ...] = ()
+    converged: bool = True
+    max_score: float = 0.0
+    plotting_rule: str = "hazen"
+    source: str | None = None
+    checksum: str | None = None
+    specimens: Any = field(default=None, repr=False, compare=False)
+    extras: dict = field(default_factory=dict, repr=False, compare=False)
+
+    # ---- derived numbers --------------------------------------------------------------
+    @property
+    def aic(self) -> float:
+        return 2.0 * self.n_parameters - 2.0 * self.log_likelihood
+
+    @property
+    def bic(self) -> float:
+        return self.n_parameters * math.log(self.n_specimens) - 2.0 * self.log_likelihood
+
+    @property
+    def moduli(self) -> np.ndarray:
+        return np.array([p.modulus for p in self.populations])
+
+    @property
+    def characteristic_strengths(self) -> np.ndarray:
+        return np.array([p.characteristic_strength for p in self.populations])
+
+    def population(self, name: str) -> PopulationEstimate:
+        for p in self.populations:
+            if p.name == name:
+                return p
+        raise FlawmixError(f"no population '{name}'; the fit has {', '.join(p.name for p in self.populations)}")
+
+    # ---- the combined distribution of a specimen -------------------------------------
+    def sf(self, stress):
+        """Probability that a test specimen survives ``stress`` (all populations acting)."""
+        return dist.concurrent_sf(stress, self.moduli, self.characteristic_strengths)
+
+    def cdf(self, stress):
+        return 1.0 - self.sf(stress)
+
+    def ppf(self, probability):
+        """Stress at which a specimen's failure probability equals ``probability``."""
+        p = np.atleast_1d(np.asarray(probability, dtype=float))
+        lo = float(self.characteristic_strengths.min()) * 1e-3
+        hi = float(self.characteristic_strengths.max()) * 10
+        out = np.array([dist.invert_sf(self.sf, q, lo, hi) for q in p.ravel()]).reshape(p.shape)
+        return out if np.ndim(probability) else float(out[0])
+
+    def failure_shares(self, stress) -> pd.DataFrame:
+        """Share of failures at each stress caused by each population (rows: stresses)."""
+        s = np.atleast_1d(np.asarray(stress, dtype=float))
+        shares = dist.concurrent_hazard_shares(s, self.moduli, self.characteristic_strengths)
+        return pd.DataFrame(shares, index=pd.Index(s, name=f"stress ({self.unit})"),
+                            columns=[p.name for p in self.populations])
+
+    # ---- presentation -----------------------------------------------------------------
+    def summary(self) -> pd.DataFrame:
+        """One row per population: estimates, intervals, counts."""
+        pct = f"{self.confidence:.0%}"
+        rows = []
+        for p in self.populations:
+            rows.append({
+                "population": p.name,
+                "kind": p.kind,
+                "failures": p.n_failures,
+                "expected failures": round(p.expected_failures, 2),
+                "modulus": p.modulus,
+                f"modulus {pct} low": p.modulus_interval[0],
+                f"modulus {pct} high": p.modulus_interval[1],
+                f"characteristic strength ({self.unit})": p.characteristic_strength,
+                f"strength {pct} low": p.strength_interval[0],
+                f"strength {pct} high": p.strength_interval[1],
+                "unbiased modulus": p.modulus_unbiased,
+                "interval method": p.interval_method,
+            })
+        return pd.DataFrame(rows).set_index("population")
+
+    def to_dict(self) -> dict[str, Any]:
+        """Plain JSON-ready dictionary (schema documented in README.md)."""
+        return {
+            "method": self.method,
+            "model": self.model,
+            "confidence": self.confidence,
+            "unit": self.unit,
+            "n_specimens": self.n_specimens,
+            "n_failed": self.n_failed,
+            "n_survived": self.n_survived,
+            "n_unidentified": self.n_unidentified,
+            "n_ambiguous": self.n_ambiguous,
+            "log_likelihood": _num(self.log_likelihood),
+            "n_parameters": self.n_parameters,
+            "aic": _num(self.aic),
+            "bic": _num(self.bic),
+            "populations": [p.to_dict() for p in self.populations],
+            "tests": [t.to_dict() for t in self.tests],
+            "warnings": list(self.warnings),
+            "converged": bool(self.converged),
+            "plotting_rule": self.plotting_rule,
+            "source": self.source,
+            "checksum_sha256": self.checksum,
+            **{k: v for k, v in self.extras.items() if isinstance(v, (dict, list, str, int, float, type(None)))},
+        }
+
+    def __str__(self) -> str:
+        return format_result(self)
+
+    def _repr_html_(self) -> str:
+        return f"<p>{self.model} {self.method} fit, {self.n_specimens} specimens, unit {self.unit}</p>" + \
+            self.summary().to_html(float_format=lambda x: f"{x:.4g}")
+
+
+def _fmt(x: float | None, digits: int = 4) -> str:
+    if x is None:
+        return "—"
+    if not math.isfinite(x):
+        return "unbounded"
+    return f"{x:.{digits}g}"
+
+
+def format_result(r: FitResult) -> str:
+    """A readable plain-text report of a fit."""
+    pct = f"{r.confidence:.0%}"
+    lines = [
+        f"flawmix: {r.model} populations, {r.method.upper() if r.method == 'mle' else r.method} fit"
+        + (f" of {r.source}" if r.source else ""),
+        f"specimens {r.n_specimens}: failed {r.n_failed} (origin unidentified {r.n_unidentified}, "
+        f"ambiguous {r.n_ambiguous}), survived {r.n_survived}; stress unit {r.unit}",
+        "",
+    ]
+    header = (f"{'population':<18}{'kind':<12}{'fail':>5}{'exp.':>7}  {'modulus':>8}  {pct + ' interval':<19}"
+              f"{'σθ':>9}  {pct + ' interval':<21}{'m unbiased':>10}")
+    lines.append(header)
+    lines.append("-" * len(header))
+    for p in r.populations:
+        mi = f"[{_fmt(p.modulus_interval[0], 3)}, {_fmt(p.modulus_interval[1], 3)}]"
+        si = f"[{_fmt(p.strength_interval[0])}, {_fmt(p.strength_interval[1])}]"
+        lines.append(
+            f"{p.name[:17]:<18}{p.kind:<12}{p.n_failures:>5}{p.expected_failures:>7.1f}  {_fmt(p.modulus):>8}  {mi:<19}"
+            f"{_fmt(p.characteristic_strength):>9}  {si:<21}{_fmt(p.modulus_unbiased):>10}"
+        )
+    methods = sorted({p.interval_method for p in r.populations})
+    lines.append("")
+    lines.append(f"intervals: {', '.join(methods)}; log-likelihood {r.log_likelihood:.4f}, "
+                 f"AIC {r.aic:.2f}, BIC {r.bic:.2f} ({r.n_parameters} parameters)")
+    reg = [p for p in r.populations if p.regression_modulus is not None]
+    if reg:
+        lines.append(f"graphical estimate (least squares on the probability plot, {r.plotting_rule} positions): "
+                     + "; ".join(f"{p.name} m={_fmt(p.regression_modulus, 3)} σθ={_fmt(p.regression_strength)}" for p in reg))
+    for t in r.tests:
+        lines.append(f"test {t.name}: statistic {t.statistic:.3f}, df {t.df}, p = {t.p_value:.3g} ({t.method}). {t.meaning}")
+    if not r.converged:
+        lines.append("WARNING: the maximisation did not reach the convergence tolerance; treat estimates with care.")
+    for w in r.warnings:
+        lines.append(f"warning: {w}")
+    return "\n".join(lines)
