@@ -78,42 +78,78 @@ def concurrent_loglik(data: Data, log_modulus, log_scale) -> np.ndarray:
     return concurrent_pointwise(data, log_modulus, log_scale).sum(axis=-1)
 
 
+@dataclass(frozen=True)
+class _Split:
+    """Failures split into certain ones (summarised) and uncertain ones (kept row by row)."""
+
+    count: np.ndarray        # (k,) certain failures of each population
+    sum_y: np.ndarray        # (k,) Σ ln σ over them
+    sum_y_total: float       # Σ ln σ over all certain failures
+    y_uncertain: np.ndarray  # (M,) ln σ of failures with two or more candidates
+    c_uncertain: np.ndarray  # (M, k) their candidate sets
+
+
+def _split(data: Data) -> _Split:
+    cached = data.__dict__.get("_split_cache")
+    if cached is not None:
+        return cached
+    n_cand = data.candidates.sum(axis=-1)
+    certain = data.failed & (n_cand == 1)
+    onehot = data.candidates[certain]
+    y_c = data.y[certain]
+    uncertain = data.failed & (n_cand > 1)
+    split = _Split(onehot.sum(axis=0).astype(float), y_c @ onehot, float(y_c.sum()),
+                   np.ascontiguousarray(data.y[uncertain]), np.ascontiguousarray(data.candidates[uncertain]))
+    object.__setattr__(data, "_split_cache", split)  # Data is frozen; this cache is derived
+    return split
+
+
 def concurrent_derivatives(data: Data, theta: np.ndarray) -> tuple[float, np.ndarray, np.ndarray]:
     """Log-likelihood, gradient (2k,) and Hessian (2k, 2k) at theta = [u_1..u_k, v_1..v_k].
 
-    Single data set only (no leading dims). Derivation in DEVELOPERS.md ("Likelihood
-    derivatives"); tests check it against finite differences.
+    Single data set only (no leading dims). Certain failures enter through sufficient
+    statistics (their count and Σ ln σ); only uncertain failures are handled row by row,
+    and the cumulative hazard needs one exp per specimen and population. Derivation in
+    DEVELOPERS.md ("Likelihood derivatives"); tests check it against finite differences.
     """
     k = data.k
     u, v = theta[:k], theta[k:]
     m = np.exp(u)
-    y = data.y
-    z = m * (y[:, None] - v)
+    sp = _split(data)
+    # cumulative hazard over all specimens, (k, N) layout for contiguous reductions
+    z = m[:, None] * (data.y[None, :] - v[:, None])
     with np.errstate(over="ignore"):
         H = np.exp(z)
-    F = data.failed
-    yF, cF, zF = y[F], data.candidates[F], z[F]
-    logh = u - yF[:, None] + zF
-    lse, pi = _masked_logsumexp(logh, cF)
-    ll = float(lse.sum() - H.sum())
-
+    S0 = H.sum(axis=1)
     Hz = H * z
-    a = pi * (1.0 + zF)          # ḡ_i components along u_j
-    b = -pi * m                  # ḡ_i components along v_j
-    grad = np.empty(2 * k)
-    grad[:k] = a.sum(axis=0) - Hz.sum(axis=0)
-    grad[k:] = m * (H.sum(axis=0) - pi.sum(axis=0))
+    S1 = Hz.sum(axis=1)
+    S2 = np.einsum("ij,ij->i", Hz, z)
 
+    # certain failures: ln h = u − y + z with z = m (y − v)
+    r = sp.count
+    zc = m * (sp.sum_y - r * v)                      # Σ z over each population's certain failures
+    ll = float(r @ u - sp.sum_y_total + zc.sum() - S0.sum())
+
+    # uncertain failures: ln Σ_{j∈C} h_j and responsibilities π
+    zu = m * (sp.y_uncertain[:, None] - v)
+    lse, pi = _masked_logsumexp(u - sp.y_uncertain[:, None] + zu, sp.c_uncertain)
+    ll += float(lse.sum())
+    a = pi * (1.0 + zu)
+    b = -pi * m
     sum_pi = pi.sum(axis=0)
-    sum_H = H.sum(axis=0)
-    hess = np.empty((2 * k, 2 * k))
+
+    grad = np.empty(2 * k)
+    grad[:k] = r + zc + a.sum(axis=0) - S1
+    grad[k:] = m * (S0 - r - sum_pi)
+
     uu = -(a.T @ a)
     uv = -(a.T @ b)
     vv = -(b.T @ b)
     idx = np.arange(k)
-    uu[idx, idx] += (pi * (zF + (1.0 + zF) ** 2)).sum(axis=0) - (Hz * (z + 1.0)).sum(axis=0)
-    uv[idx, idx] += -m * (pi * (2.0 + zF)).sum(axis=0) + m * (H * (z + 1.0)).sum(axis=0)
-    vv[idx, idx] += m**2 * (sum_pi - sum_H)
+    uu[idx, idx] += zc + (pi * (zu + (1.0 + zu) ** 2)).sum(axis=0) - (S2 + S1)
+    uv[idx, idx] += -m * r - m * (pi * (2.0 + zu)).sum(axis=0) + m * (S1 + S0)
+    vv[idx, idx] += m**2 * (sum_pi - S0)   # certain rows cancel: m² − (−m)²
+    hess = np.empty((2 * k, 2 * k))
     hess[:k, :k] = uu
     hess[:k, k:] = uv
     hess[k:, :k] = uv.T

@@ -31,7 +31,8 @@ def _centred_data(specimens: Specimens) -> tuple[lik.Data, float]:
     return lik.Data(y - centre, specimens.failed, specimens.candidates), centre
 
 
-def _em_start(data: lik.Data, split: str, max_iter: int = 15) -> np.ndarray:
+def _em_start(data: lik.Data, split: str, max_iter: int | None = None) -> np.ndarray:
+    """A starting point from a few EM steps; only uncertain failures are re-split."""
     k = data.k
     cand = data.candidates.astype(float)
     F = data.failed
@@ -43,17 +44,21 @@ def _em_start(data: lik.Data, split: str, max_iter: int = 15) -> np.ndarray:
         resp = cand.copy()
     total = resp.sum(axis=1, keepdims=True)
     resp = np.where(total > 0, resp / np.where(total > 0, total, 1.0), 0.0)
-    certain = data.certain
+    if max_iter is None:  # EM only has to get close; Newton finishes, so keep big data cheap
+        max_iter = 3 if data.y.size <= 10_000 else 2
+    uncertain = np.flatnonzero(F & (n_cand > 1))
+    sub = lik.Data(data.y[uncertain], np.ones(uncertain.size, bool), data.candidates[uncertain])
     y = np.broadcast_to(data.y, (k, data.y.size))
     u = None
     for _ in range(max_iter):
         u, v, _ = censored_weibull_mle(y, resp.T, log_modulus_start=u)
-        if certain:
+        if uncertain.size == 0:
             break
-        new = lik.responsibilities(data, u, v)
-        if np.max(np.abs(new - resp)) < 1e-3:  # Newton finishes the job
+        new = lik.responsibilities(sub, u, v)
+        change = np.max(np.abs(new - resp[uncertain]))
+        resp[uncertain] = new
+        if change < 1e-3:  # Newton finishes the job
             break
-        resp = new
     return np.concatenate([u, v])
 
 
@@ -68,7 +73,9 @@ def _maximise(data: lik.Data, tie=None, start=None):
     lower, upper = _bounds(k)
     deriv = lambda t: lik.concurrent_derivatives(data, t)
     # Unidentified origins can make the likelihood multi-modal: try two EM splits.
-    starts = [start] if start is not None else (["by-count"] if data.certain else ["by-count", "equal"])
+    # (One start for big data: its likelihood is too sharply peaked for a second mode to matter.)
+    two = not data.certain and data.y.size <= 10_000
+    starts = [start] if start is not None else (["by-count", "equal"] if two else ["by-count"])
     best = None
     for split in starts:
         theta0 = _em_start(data, split) if isinstance(split, str) else np.array(split, dtype=float)

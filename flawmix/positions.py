@@ -41,11 +41,7 @@ def adjusted_ranks(strength, is_failure) -> tuple[np.ndarray, np.ndarray]:
     order = np.lexsort((~f, s))          # by strength, failures before suspensions at ties
     reverse = n - np.arange(n)           # N for the weakest
     f_sorted = f[order]
-    ranks = np.empty(int(f.sum()))
-    previous = 0.0
-    j = 0
-    for pos in np.flatnonzero(f_sorted):
-        previous = previous + (n + 1 - previous) / (1 + reverse[pos])
-        ranks[j] = previous
-        j += 1
+    # i_j = i_{j-1} + (N + 1 - i_{j-1})/(1 + k_j)  <=>  N + 1 - i_j = (N + 1 - i_{j-1}) k_j/(1 + k_j)
+    k = reverse[f_sorted].astype(float)
+    ranks = (n + 1) * (1.0 - np.exp(np.cumsum(np.log(k / (k + 1.0)))))
     return order[f_sorted], ranks

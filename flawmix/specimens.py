@@ -64,6 +64,8 @@ class Specimens:
         origin: (N,) origin labels as written.
         table: the input table with all its columns (pass-through of extra columns).
         geometry: (N,) name of each specimen's test geometry, or None.
+        unidentified: (N,) True where a failure's origin was written as unknown
+            (None: every failure with all populations as candidates counts).
     """
 
     strength: np.ndarray
@@ -77,6 +79,7 @@ class Specimens:
     source: str | None = None
     checksum: str | None = None
     geometry: np.ndarray | None = None
+    unidentified: np.ndarray | None = None
 
     def __post_init__(self):
         for name in ("strength", "failed", "candidates"):
@@ -107,15 +110,16 @@ class Specimens:
     @property
     def n_unidentified(self) -> int:
         """Failures whose origin was not identified at all (every population is a candidate)."""
-        if len(self.populations) == 1 and self.origin is not None:
-            unknown = np.array([normalise_label(o) in UNKNOWN_LABELS for o in self.origin])
-            return int((unknown & self.failed).sum())
+        if self.unidentified is not None:
+            return int((self.unidentified & self.failed).sum())
         return int((self.failed & (self.n_candidates == len(self.populations))).sum())
 
     @property
     def n_ambiguous(self) -> int:
-        """Failures with a candidate set of two or more, but not all, populations."""
+        """Failures whose origin was written as one of two or more populations."""
         c = self.n_candidates
+        if self.unidentified is not None:
+            return int((self.failed & (c > 1) & ~self.unidentified).sum())
         return int((self.failed & (c > 1) & (c < len(self.populations))).sum())
 
     def certain_failures(self) -> np.ndarray:
@@ -384,6 +388,7 @@ def read_specimens(
         source=source,
         checksum=checksum,
         geometry=geometry,
+        unidentified=np.array([p is None for p in parsed]) & failed,
     )
 
 

@@ -1,0 +1,139 @@
+"""The ``flawmix`` command line: presentation only, every number comes from the Python API.
+
+Errors are one line on stderr starting ``error:`` and exit status 2; never a traceback.
+"""
+from __future__ import annotations
+
+import argparse
+import json
+import sys
+import warnings
+from pathlib import Path
+
+from .errors import FlawmixError, FlawmixWarning
+
+EXIT_USAGE = 2
+
+
+class _Parser(argparse.ArgumentParser):
+    def error(self, message):  # one line, exit 2, like every other flawmix error
+        raise FlawmixError(f"{message} (see '{self.prog} --help')")
+
+
+def _add_grouping(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--study", metavar="FILE", help="study file (TOML) with populations, unit, geometries")
+    p.add_argument("--group", metavar="NAME[:KIND]=LABELS", action="append", default=[],
+                   help="group origin labels into a population, e.g. pores:volume=pore,agglomerate "
+                        "(repeat per population; overrides the study file's populations)")
+    p.add_argument("--unit", help="stress unit of the strength column: Pa, kPa, MPa (default), GPa, psi, ksi")
+
+
+def _add_fit_options(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--confidence", type=float, help="two-sided interval level (default 0.90)")
+    p.add_argument("--intervals", default="auto", choices=["auto", "profile", "wald", "pivotal", "none"],
+                   help="interval method (default auto: pivotal for one complete population, else profile)")
+    p.add_argument("--positions", default="hazen", choices=["hazen", "mean-rank", "median-rank"],
+                   help="plotting positions of the graphical comparison estimate (default hazen, (i-0.5)/N)")
+    p.add_argument("--common-modulus", action="store_true", help="impose one modulus on all populations")
+
+
+def _load(args):
+    """Read study file and specimen table as the options say."""
+    from .specimens import read_specimens
+    from .study import Study, parse_group_option, read_study
+
+    study = read_study(args.study) if getattr(args, "study", None) else Study()
+    populations = study.populations
+    if args.group:
+        populations = dict(parse_group_option(g) for g in args.group)
+    path = getattr(args, "specimens", None) or study.specimens
+    if path is None:
+        raise FlawmixError("no specimen table given; name a .csv/.xlsx file or set 'specimens' in the study file")
+    unit = args.unit or study.unit or "MPa"
+    specimens = read_specimens(path, populations, unit)
+    return study, specimens
+
+
+def _fit_from_args(args, study, specimens):
+    from .fit import fit
+
+    confidence = args.confidence if args.confidence is not None else (study.confidence or 0.90)
+    return fit(specimens, confidence=confidence, intervals=args.intervals, positions=args.positions,
+               common_modulus=args.common_modulus)
+
+
+def _print_warnings(result) -> None:
+    for w in result.warnings:
+        print(f"warning: {w}", file=sys.stderr)
+
+
+def cmd_fit(args) -> int:
+    study, specimens = _load(args)
+    result = _fit_from_args(args, study, specimens)
+    if args.json:
+        print(json.dumps(result.to_dict(), indent=2, ensure_ascii=False))
+    else:
+        print(result)
+    _print_warnings(result)
+    return 0
+
+
+def demo_paths() -> tuple[Path, Path]:
+    from importlib.resources import files
+
+    base = files("flawmix") / "data"
+    return Path(str(base / "seal_rings.csv")), Path(str(base / "seal_rings.toml"))
+
+
+def cmd_demo(args) -> int:
+    csv, toml = demo_paths()
+    ns = argparse.Namespace(study=str(toml), group=[], unit=None, specimens=str(csv), confidence=None,
+                            intervals="auto", positions="hazen", common_modulus=False)
+    study, specimens = _load(ns)
+    result = _fit_from_args(ns, study, specimens)
+    print(f"Demo data (invented): {study.title}\n")
+    print(result)
+    _print_warnings(result)
+    return 0
+
+
+def build_parser() -> argparse.ArgumentParser:
+    from . import __version__
+
+    parser = _Parser(prog="flawmix", description="Strength statistics of brittle materials with competing flaw populations.")
+    parser.add_argument("--version", action="version", version=f"flawmix {__version__}")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
+
+    p = sub.add_parser("fit", help="fit every flaw population of a specimen table")
+    p.add_argument("specimens", nargs="?", help="specimen table (.csv or .xlsx); may come from the study file")
+    _add_grouping(p)
+    _add_fit_options(p)
+    p.add_argument("--json", action="store_true", help="print the result as JSON (schema in README)")
+    p.set_defaults(func=cmd_fit)
+
+    p = sub.add_parser("demo", help="run the analysis on the embedded, invented demo data")
+    p.set_defaults(func=cmd_demo)
+    return parser
+
+
+def main(argv=None) -> int:
+    parser = build_parser()
+    try:
+        args = parser.parse_args(argv)
+        if not getattr(args, "command", None):
+            parser.print_help()
+            return EXIT_USAGE
+        with warnings.catch_warnings():
+            # Results carry their own warnings; the CLI prints them once, as one line each.
+            warnings.simplefilter("ignore", FlawmixWarning)
+            return args.func(args)
+    except FlawmixError as exc:
+        print(f"error: {exc}", file=sys.stderr)
+        return EXIT_USAGE
+    except KeyboardInterrupt:
+        print("error: interrupted", file=sys.stderr)
+        return 130
+
+
+if __name__ == "__main__":
+    sys.exit(main())

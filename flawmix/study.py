@@ -1,0 +1,109 @@
+"""Study files (TOML): how origin labels group into populations, units and other settings.
+
+Example::
+
+    unit = "MPa"
+    confidence = 0.90
+
+    [populations.pores]
+    kind = "volume"
+    labels = ["pore", "porous region"]
+
+    [populations.grinding]
+    kind = "surface"
+    labels = ["grinding damage", "machining damage"]
+"""
+from __future__ import annotations
+
+import tomllib
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+from .errors import FlawmixError
+from .specimens import Population, make_populations
+from .units import stress_unit
+
+KNOWN_KEYS = {"unit", "confidence", "specimens", "populations", "geometries", "component",
+              "seed", "title", "length_unit"}
+
+
+@dataclass(frozen=True)
+class Study:
+    """Settings read from a study file; every field optional."""
+
+    populations: tuple[Population, ...] | None = None
+    unit: str | None = None
+    confidence: float | None = None
+    specimens: Path | None = None
+    title: str | None = None
+    seed: int | None = None
+    length_unit: str | None = None
+    geometries: dict[str, dict[str, Any]] = field(default_factory=dict)
+    component: dict[str, Any] | None = None
+    priors: dict[str, dict[str, Any]] = field(default_factory=dict)
+    path: Path | None = None
+
+
+def read_study(path) -> Study:
+    """Read and check a study file; errors name the file and the offending key."""
+    path = Path(path)
+    if not path.exists():
+        raise FlawmixError(f"{path}: no such study file; check the path")
+    try:
+        raw = tomllib.loads(path.read_text(encoding="utf-8"))
+    except tomllib.TOMLDecodeError as exc:
+        raise FlawmixError(f"{path}: not valid TOML ({exc}); fix the line it names") from None
+    except UnicodeDecodeError:
+        raise FlawmixError(f"{path}: not UTF-8 text; save the study file as UTF-8") from None
+    unknown = set(raw) - KNOWN_KEYS
+    if unknown:
+        raise FlawmixError(f"{path}: unknown key(s) {', '.join(sorted(unknown))}; "
+                           f"known keys are {', '.join(sorted(KNOWN_KEYS))}")
+    pops = None
+    priors: dict[str, dict[str, Any]] = {}
+    if "populations" in raw:
+        table = raw["populations"]
+        if not isinstance(table, dict) or not table:
+            raise FlawmixError(f"{path}: [populations.NAME] tables expected, each with kind and labels")
+        try:
+            pops = make_populations(table)
+        except FlawmixError as exc:
+            raise FlawmixError(f"{path}: {exc}") from None
+        for name, spec in table.items():
+            if isinstance(spec, dict) and "prior" in spec:
+                priors[name] = dict(spec["prior"])
+    unit = None
+    if "unit" in raw:
+        try:
+            unit = stress_unit(raw["unit"])
+        except FlawmixError as exc:
+            raise FlawmixError(f"{path}: key 'unit': {exc}") from None
+    confidence = raw.get("confidence")
+    if confidence is not None and not (isinstance(confidence, (int, float)) and 0 < confidence < 1):
+        raise FlawmixError(f"{path}: key 'confidence' must be a number between 0 and 1, like 0.90")
+    specimens = raw.get("specimens")
+    if specimens is not None:
+        specimens = (path.parent / specimens).resolve()
+    geometries = raw.get("geometries", {})
+    if not isinstance(geometries, dict):
+        raise FlawmixError(f"{path}: 'geometries' must be tables [geometries.NAME]")
+    component = raw.get("component")
+    return Study(populations=pops, unit=unit, confidence=confidence, specimens=specimens,
+                 title=raw.get("title"), seed=raw.get("seed"), length_unit=raw.get("length_unit"),
+                 geometries=geometries, component=component, priors=priors, path=path)
+
+
+def parse_group_option(text: str) -> tuple[str, dict[str, Any]]:
+    """Parse a command-line grouping ``NAME[:KIND]=label,label``."""
+    if "=" not in text:
+        raise FlawmixError(f"--group '{text}': write NAME[:KIND]=label,label (for example pores:volume=pore,agglomerate)")
+    head, labels = text.split("=", 1)
+    name, _, kind = head.partition(":")
+    name = name.strip()
+    if not name:
+        raise FlawmixError(f"--group '{text}': the population needs a name before '='")
+    items = [x.strip() for x in labels.split(",") if x.strip()]
+    if not items:
+        raise FlawmixError(f"--group '{text}': list at least one origin label after '='")
+    return name, {"kind": kind.strip() or "unspecified", "labels": items}

@@ -1,0 +1,109 @@
+"""Pivotal bounds, unbiasing factors and profile-likelihood intervals."""
+import numpy as np
+import pandas as pd
+import pytest
+from scipy import optimize, stats
+
+import flawmix as fm
+from flawmix.pivots import complete_sample_pivots, ross_unbiasing_factor
+
+from conftest import simulate_campaign
+
+# DOMAIN.md section 3 [calc: 500 000 Monte Carlo replicates per N]
+PIVOT_TABLE = {
+    #  N: (UF, q05, q95, t05, t95)
+    5: (0.6945, 0.682, 2.826, -1.242, 1.090),
+    10: (0.8551, 0.738, 1.819, -0.664, 0.642),
+    20: (0.9290, 0.793, 1.451, -0.423, 0.419),
+    30: (0.9533, 0.821, 1.334, -0.333, 0.332),
+    50: (0.9723, 0.854, 1.237, -0.253, 0.253),
+}
+
+
+@pytest.mark.parametrize("n", sorted(PIVOT_TABLE))
+def test_pivots_agree_with_published_monte_carlo_table(n):
+    uf, q05, q95, t05, t95 = PIVOT_TABLE[n]
+    piv = complete_sample_pivots(n)
+    # 200 000 replicates: Monte Carlo error of the 5 %/95 % quantiles is about 0.1 % to 0.3 %
+    assert piv.unbiasing_factor == pytest.approx(uf, abs=0.002)
+    assert piv.modulus_quantile(0.05) == pytest.approx(q05, rel=0.004)
+    assert piv.modulus_quantile(0.95) == pytest.approx(q95, rel=0.006)
+    assert piv.scale_quantile(0.05) == pytest.approx(t05, abs=0.006)
+    assert piv.scale_quantile(0.95) == pytest.approx(t95, abs=0.006)
+
+
+@pytest.mark.parametrize("n", [10, 20, 30, 50])
+def test_unbiasing_factor_agrees_with_ross_approximation(n):
+    # Ross (1994), IEEE Trans. Dielectr. Electr. Insul.: UF ≈ (N − 2)/(N − 0.68), said to
+    # match the printed ASTM C1239 table within about 0.001 (DOMAIN.md section 3). The exact
+    # Monte Carlo factor (the 500 000-replicate column of the same table) sits 0.0017 to 0.0036
+    # below the approximation for N = 10 to 30, so the approximation is checked to 0.004.
+    assert complete_sample_pivots(n).unbiasing_factor == pytest.approx(ross_unbiasing_factor(n), abs=0.004)
+
+
+def test_pivot_simulation_is_seeded():
+    a = complete_sample_pivots(12, replicates=5000, seed=1)
+    b = complete_sample_pivots.__wrapped__(12, replicates=5000, seed=1)
+    np.testing.assert_array_equal(a.modulus_ratio, b.modulus_ratio)
+
+
+def test_complete_single_population_gets_pivotal_bounds_and_unbiased_modulus():
+    rng = np.random.default_rng(30)
+    s = 500 * rng.weibull(10, 30)
+    r = fm.fit(pd.DataFrame({"strength": s}))
+    p = r.populations[0]
+    assert p.interval_method == "pivotal"
+    uf, q05, q95, t05, t95 = PIVOT_TABLE[30]
+    # bounds m̂/q95 ≤ m ≤ m̂/q05 and σ̂θ exp(−t95/m̂) ≤ σθ ≤ σ̂θ exp(−t05/m̂) (DOMAIN.md section 3)
+    assert p.modulus_interval[0] == pytest.approx(p.modulus / q95, rel=0.006)
+    assert p.modulus_interval[1] == pytest.approx(p.modulus / q05, rel=0.004)
+    assert p.strength_interval[0] == pytest.approx(p.characteristic_strength * np.exp(-t95 / p.modulus), rel=1e-3)
+    assert p.strength_interval[1] == pytest.approx(p.characteristic_strength * np.exp(-t05 / p.modulus), rel=1e-3)
+    assert p.modulus_unbiased == pytest.approx(p.modulus * uf, rel=0.002)
+
+
+def test_profile_interval_endpoints_sit_on_the_chi_square_cut():
+    # Independent check with scipy.stats: at each modulus bound, the log-likelihood maximised
+    # over σθ (by scipy.optimize) is ℓ_max − χ²₁(0.90)/2.
+    rng = np.random.default_rng(31)
+    frame = simulate_campaign(rng, n=40, survive_at=440)
+    r = fm.fit(frame, confidence=0.90)
+    cut = stats.chi2.ppf(0.90, 1) / 2
+    s = frame["strength"].to_numpy()
+    for p in r.populations:
+        mine = (frame["origin"] == p.name).to_numpy()
+
+        def ll(m, scale):
+            return (stats.weibull_min.logpdf(s[mine], m, scale=scale).sum()
+                    + stats.weibull_min.logsf(s[~mine], m, scale=scale).sum())
+
+        top = ll(p.modulus, p.characteristic_strength)
+        for bound in p.modulus_interval:
+            best = -optimize.minimize_scalar(lambda ls: -ll(bound, np.exp(ls)),
+                                             bounds=(np.log(100), np.log(2000)), method="bounded",
+                                             options={"xatol": 1e-10}).fun
+            assert top - best == pytest.approx(cut, abs=1e-5)
+        for bound in p.strength_interval:
+            best = -optimize.minimize_scalar(lambda lm: -ll(np.exp(lm), bound), bounds=(np.log(0.5), np.log(200)),
+                                             method="bounded", options={"xatol": 1e-10}).fun
+            assert top - best == pytest.approx(cut, abs=1e-5)
+
+
+def test_intervals_contain_the_estimate_and_widen_with_confidence():
+    rng = np.random.default_rng(32)
+    frame = simulate_campaign(rng, n=40, unknown=0.2)
+    narrow = fm.fit(frame, confidence=0.80)
+    wide = fm.fit(frame, confidence=0.95)
+    for a, b in zip(narrow.populations, wide.populations):
+        assert b.modulus_interval[0] < a.modulus_interval[0] < a.modulus < a.modulus_interval[1] < b.modulus_interval[1]
+        assert b.strength_interval[0] < a.strength_interval[0] < a.characteristic_strength < a.strength_interval[1]
+
+
+def test_wald_and_profile_agree_for_large_samples():
+    rng = np.random.default_rng(33)
+    frame = simulate_campaign(rng, n=4000, unknown=0.1)
+    prof = fm.fit(frame, intervals="profile")
+    wald = fm.fit(frame, intervals="wald")
+    for a, b in zip(prof.populations, wald.populations):
+        np.testing.assert_allclose(a.modulus_interval, b.modulus_interval, rtol=0.01)
+        np.testing.assert_allclose(a.strength_interval, b.strength_interval, rtol=0.002)
