@@ -5,8 +5,8 @@ from .errors import FlawmixError
 from .result import FitResult
 from .specimens import Specimens, read_specimens
 
-METHODS = ("mle",)
-MODELS = ("concurrent",)
+METHODS = ("mle", "bayes")
+MODELS = ("concurrent", "exclusive", "partial")
 
 
 def fit(
@@ -18,6 +18,12 @@ def fit(
     intervals: str = "auto",
     positions: str = "hazen",
     common_modulus: bool = False,
+    priors=None,
+    reference_prior: bool = False,
+    seed: int | None = 0,
+    target_ess: float = 1000.0,
+    max_steps: int = 40_000,
+    progress: bool = False,
     **read_options,
 ) -> FitResult:
     """Fit every flaw population of a specimen set.
@@ -25,8 +31,13 @@ def fit(
     Args:
         specimens: a :class:`Specimens` (from :func:`read_specimens`), or anything
             ``read_specimens`` accepts (path or DataFrame) together with its options.
-        method: ``"mle"`` (competing-risk censored maximum likelihood).
-        model: ``"concurrent"``: every specimen carries every population.
+        method: ``"mle"`` (competing-risk censored maximum likelihood) or ``"bayes"``
+            (emcee ensemble sampler on the same likelihood; see :func:`flawmix.bayes.fit_bayes`
+            for ``priors``, ``reference_prior``, ``seed``, ``target_ess``, ``max_steps``, ``progress``).
+        model: ``"concurrent"`` (every specimen carries every population), ``"exclusive"``
+            (each specimen carries one population; fractions are fitted) or ``"partial"``
+            (every specimen carries all but one population, a fraction also carries that one;
+            both ways round are fitted and the better reported).
         confidence: two-sided level of the intervals (0.90 gives 5 % / 95 % bounds).
         intervals: ``auto`` (pivotal bounds for one complete population, profile likelihood
             otherwise, Wald beyond 20 000 specimens), ``profile``, ``wald``, ``pivotal``, ``none``.
@@ -44,7 +55,13 @@ def fit(
         raise FlawmixError(f"unknown method '{method}'; use one of {', '.join(METHODS)}")
     if model not in MODELS:
         raise FlawmixError(f"unknown model '{model}'; use one of {', '.join(MODELS)}")
-    from .mle import fit_concurrent_mle
+    if method == "bayes":
+        from .bayes import fit_bayes
 
-    return fit_concurrent_mle(specimens, confidence, intervals=intervals, positions=positions,
-                              common_modulus=common_modulus)
+        return fit_bayes(specimens, confidence, model=model, priors=priors, reference_prior=reference_prior,
+                         seed=seed, target_ess=target_ess, max_steps=max_steps, progress=progress,
+                         common_modulus=common_modulus)
+    from .mle import fit_mle
+
+    return fit_mle(specimens, confidence, model=model, intervals=intervals, positions=positions,
+                   common_modulus=common_modulus)

@@ -166,3 +166,143 @@ def responsibilities(data: Data, log_modulus, log_scale) -> np.ndarray:
     logh = u[..., None, :] - y + m * (y - v[..., None, :])
     _, pi = _masked_logsumexp(logh, data.candidates)
     return np.where(data.failed[..., None], pi, 0.0)
+
+
+# ---- exclusive and partially concurrent populations ---------------------------------------
+#
+# theta layout for every model: [u_1..u_k, v_1..v_k, extra...]
+#   concurrent: no extra
+#   exclusive:  α_1..α_{k−1}, fractions p = softmax([α, 0]) (population k is the reference)
+#   partial:    logit p; population `partial_index` is carried by a fraction p of the
+#               specimens, all the others by every specimen.
+
+MODELS = ("concurrent", "exclusive", "partial")
+
+
+@dataclass(frozen=True)
+class Model:
+    """Which likelihood, for how many populations (and, for ``partial``, which one is partial)."""
+
+    name: str
+    k: int
+    partial_index: int = 0
+
+    def __post_init__(self):
+        if self.name not in MODELS:
+            raise ValueError(f"unknown model {self.name!r}")
+
+    @property
+    def n_extra(self) -> int:
+        return {"concurrent": 0, "exclusive": self.k - 1, "partial": 1}[self.name]
+
+    @property
+    def n_params(self) -> int:
+        return 2 * self.k + self.n_extra
+
+    def fractions(self, theta) -> np.ndarray:
+        """(..., k) share of specimens carrying each population."""
+        theta = np.asarray(theta, dtype=float)
+        k = self.k
+        if self.name == "exclusive":
+            alpha = np.concatenate([theta[..., 2 * k:], np.zeros(theta.shape[:-1] + (1,))], axis=-1)
+            alpha = alpha - alpha.max(axis=-1, keepdims=True)
+            e = np.exp(alpha)
+            return e / e.sum(axis=-1, keepdims=True)
+        out = np.ones(theta.shape[:-1] + (k,))
+        if self.name == "partial":
+            out[..., self.partial_index] = 1.0 / (1.0 + np.exp(-theta[..., 2 * k]))
+        return out
+
+    def pointwise(self, data: Data, theta) -> np.ndarray:
+        """(..., N) per-specimen log-likelihood for parameter sets theta (..., n_params)."""
+        theta = np.asarray(theta, dtype=float)
+        k = self.k
+        u, v = theta[..., :k], theta[..., k:2 * k]
+        if self.name == "concurrent":
+            return concurrent_pointwise(data, u, v)
+        if self.name == "exclusive":
+            return exclusive_pointwise(data, u, v, np.log(self.fractions(theta)))
+        return partial_pointwise(data, u, v, theta[..., 2 * k], self.partial_index)
+
+    def loglik(self, data: Data, theta) -> np.ndarray:
+        return self.pointwise(data, theta).sum(axis=-1)
+
+    def bounds(self) -> tuple[np.ndarray, np.ndarray]:
+        k, e = self.k, self.n_extra
+        lower = np.concatenate([np.full(k, LOG_MODULUS_MIN), np.full(k, -np.inf), np.full(e, -30.0)])
+        upper = np.concatenate([np.full(k, LOG_MODULUS_MAX), np.full(k, np.inf), np.full(e, 30.0)])
+        return lower, upper
+
+
+def _parts(data: Data, log_modulus, log_scale):
+    """Shared pieces: y (..., N, 1), z, H, ln h (..., N, k)."""
+    u = np.asarray(log_modulus, dtype=float)
+    v = np.asarray(log_scale, dtype=float)
+    m = np.exp(u)[..., None, :]
+    y = data.y[..., :, None]
+    z = m * (y - v[..., None, :])
+    with np.errstate(over="ignore"):
+        H = np.exp(z)
+    logh = u[..., None, :] - y + z
+    return H, logh
+
+
+def exclusive_pointwise(data: Data, log_modulus, log_scale, log_fraction) -> np.ndarray:
+    """Mixture: failure from C -> ln Σ_{j∈C} p_j f_j; survivor -> ln Σ_j p_j S_j."""
+    H, logh = _parts(data, log_modulus, log_scale)
+    logp = np.asarray(log_fraction)[..., None, :]
+    fail, _ = _masked_logsumexp(logp + logh - H, data.candidates)
+    surv, _ = _masked_logsumexp(logp - H, np.ones_like(data.candidates, dtype=bool))
+    return np.where(data.failed, fail, surv)
+
+
+def partial_pointwise(data: Data, log_modulus, log_scale, logit_fraction, partial_index: int) -> np.ndarray:
+    """All specimens carry every population but one (A); a fraction p also carries A.
+
+    S = S_rest [(1 − p) + p S_A]; failure from A: p f_A S_rest; from j ≠ A: h_j S.
+    """
+    H, logh = _parts(data, log_modulus, log_scale)
+    a = partial_index
+    t = np.asarray(logit_fraction, dtype=float)[..., None]
+    log_p = -np.logaddexp(0.0, -t)        # ln p
+    log_q = -np.logaddexp(0.0, t)         # ln (1 − p)
+    H_a = H[..., a]
+    H_rest = H.sum(axis=-1) - H_a
+    mix = np.logaddexp(log_q, log_p - H_a)           # ln[(1 − p) + p S_A]
+    terms = logh + (mix - H_rest)[..., None]
+    terms[..., a] = log_p + logh[..., a] - H_a - H_rest
+    fail, _ = _masked_logsumexp(terms, data.candidates)
+    return np.where(data.failed, fail, mix - H_rest)
+
+
+def numerical_derivatives(model: Model, data: Data, theta: np.ndarray, step: float = 1e-4):
+    """Log-likelihood, gradient and Hessian by central differences, all parameter sets in
+    one batched call (the models other than ``concurrent`` have no hand-written derivatives)."""
+    theta = np.asarray(theta, dtype=float)
+    P = theta.size
+    eye = np.eye(P) * step
+    points = [theta]
+    for i in range(P):
+        points += [theta + eye[i], theta - eye[i]]
+    for i in range(P):
+        points += [theta + eye[i] / 2, theta - eye[i] / 2]
+    for i in range(P):
+        for j in range(i + 1, P):
+            points += [theta + eye[i] + eye[j], theta + eye[i] - eye[j],
+                       theta - eye[i] + eye[j], theta - eye[i] - eye[j]]
+    pts = np.array(points)
+    chunk = max(1, int(2e7 // max(1, data.y.size * data.k)))
+    values = np.concatenate([model.loglik(data, pts[s:s + chunk]) for s in range(0, len(pts), chunk)])
+    f0 = values[0]
+    plus, minus = values[1:2 * P + 1:2], values[2:2 * P + 1:2]
+    half_plus, half_minus = values[2 * P + 1:4 * P + 1:2], values[2 * P + 2:4 * P + 1:2]
+    # five-point stencil (error of order step⁴): the score must be accurate near the optimum
+    grad = (8 * (half_plus - half_minus) - (plus - minus)) / (6 * step)
+    hess = np.diag((plus - 2 * f0 + minus) / step**2)
+    idx = 4 * P + 1
+    for i in range(P):
+        for j in range(i + 1, P):
+            pp, pm, mp, mm = values[idx:idx + 4]
+            hess[i, j] = hess[j, i] = (pp - pm - mp + mm) / (4 * step**2)
+            idx += 4
+    return float(f0), grad, hess

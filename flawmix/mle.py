@@ -111,20 +111,91 @@ def _regression(specimens: Specimens, j: int, rule: str):
     return weibull_regression(np.log(specimens.strength[idx]), p)
 
 
-def fit_concurrent_mle(
+def _interval_method(intervals: str, specimens: Specimens, complete_single: bool) -> str:
+    if intervals not in ("auto", "profile", "wald", "pivotal", "none"):
+        raise FlawmixError(f"unknown interval method '{intervals}'; use auto, profile, wald, pivotal or none")
+    method = intervals
+    if method == "auto":
+        method = "pivotal" if complete_single else (
+            "profile" if specimens.n_specimens <= PROFILE_MAX_SPECIMENS else "wald")
+    if method == "pivotal" and not complete_single:
+        raise FlawmixError("pivotal bounds exist only for one population without survivors; "
+                           "use intervals='profile'")
+    return method
+
+
+def _pivotal_bounds(n, m_hat, log_scale, confidence):
+    lo_p, hi_p = (1 - confidence) / 2, (1 + confidence) / 2
+    if n <= PIVOT_MAX_SPECIMENS:
+        piv = complete_sample_pivots(n)
+        q_lo, q_hi = piv.modulus_quantile(lo_p), piv.modulus_quantile(hi_p)
+        t_lo, t_hi = piv.scale_quantile(lo_p), piv.scale_quantile(hi_p)
+    else:  # asymptotic variances of the Weibull MLE: 6/π² and 1 + 6(1−γ)²/π², over N
+        z = _sstats.norm.ppf(hi_p)
+        q_lo, q_hi = 1 - z * np.sqrt(0.6079 / n), 1 + z * np.sqrt(0.6079 / n)
+        t_lo, t_hi = -z * np.sqrt(1.1087 / n), z * np.sqrt(1.1087 / n)
+    return ((m_hat / q_hi, m_hat / q_lo),
+            (np.exp(log_scale - t_hi / m_hat), np.exp(log_scale - t_lo / m_hat)))
+
+
+def _fit_other_model(data: lik.Data, model_name: str, concurrent_theta: np.ndarray):
+    """Exclusive or partial model: Newton on numerical derivatives from several starts."""
+    k = data.k
+    F = data.failed
+    n_cand = data.candidates.sum(axis=1)
+    counts = data.candidates[F & (n_cand == 1)].sum(axis=0) + 0.5
+    share = counts / counts.sum()
+    candidates = []
+    if model_name == "exclusive":
+        model = lik.Model("exclusive", k)
+        # start 1: the concurrent estimate; start 2: each population fitted to its own
+        # labelled failures as a complete sample (what the mixture says they are)
+        alpha = np.log(share[:-1] / share[-1])
+        u2, v2, _ = censored_weibull_mle(np.broadcast_to(data.y, (k, data.y.size)),
+                                         (data.candidates & (F & (n_cand == 1))[:, None]).T.astype(float))
+        own = np.zeros((k, data.y.size), bool)
+        for j in range(k):
+            own[j] = data.candidates[:, j] & F & (n_cand == 1)
+        u3 = np.empty(k); v3 = np.empty(k)
+        for j in range(k):
+            yy = data.y[own[j]] if own[j].sum() >= 2 else data.y[F]
+            uu, vv, _ = censored_weibull_mle(yy, np.ones(yy.size))
+            u3[j], v3[j] = uu, vv
+        starts = [np.concatenate([concurrent_theta, alpha]), np.concatenate([u3, v3, alpha]),
+                  np.concatenate([u2, v2, alpha])]
+        candidates.append((model, starts))
+    else:
+        for a in range(k):
+            model = lik.Model("partial", k, a)
+            starts = [np.concatenate([concurrent_theta, [t]]) for t in (2.0, 0.0, -1.0)]
+            candidates.append((model, starts))
+    best = None
+    for model, starts in candidates:
+        lower, upper = model.bounds()
+        deriv = (lambda t, model=model: lik.numerical_derivatives(model, data, t))
+        for theta0 in starts:
+            theta0 = np.clip(theta0, lower, upper)
+            opt = newton_maximise(deriv, theta0, lower=lower, upper=upper, score_tol=1e-6)
+            if best is None or opt.loglik > best[0].loglik + 1e-9:
+                best = (opt, model, deriv)
+    return best
+
+
+def fit_mle(
     specimens: Specimens,
     confidence: float = 0.90,
     *,
+    model: str = "concurrent",
     intervals: str = "auto",
     positions: str = "hazen",
     common_modulus: bool = False,
     tests: bool = True,
 ) -> FitResult:
-    """Competing-risk censored MLE of every population (see module docstring)."""
+    """Maximum-likelihood fit of every population under the named model."""
     if not 0 < confidence < 1:
         raise FlawmixError(f"confidence {confidence} must lie strictly between 0 and 1 (for example 0.90)")
-    if intervals not in ("auto", "profile", "wald", "pivotal", "none"):
-        raise FlawmixError(f"unknown interval method '{intervals}'; use auto, profile, wald, pivotal or none")
+    if model not in lik.MODELS:
+        raise FlawmixError(f"unknown model '{model}'; use one of {', '.join(lik.MODELS)}")
     position_rule(positions)
     notes = check_estimable(specimens)
     for w in notes:
@@ -132,61 +203,62 @@ def fit_concurrent_mle(
     data, centre = _centred_data(specimens)
     k = data.k
     n = specimens.n_specimens
+    if model != "concurrent" and k < 2:
+        raise FlawmixError(f"the {model} model needs at least two populations; this table has one")
+    if model != "concurrent" and common_modulus:
+        raise FlawmixError("a common modulus is available for the concurrent model only")
     tie = common_modulus_tie(k) if common_modulus else None
-    opt, deriv, lower, upper = _maximise(data, tie)
+    conc, deriv, lower, upper = _maximise(data, tie)
+    spec = lik.Model("concurrent", k)
+    opt = conc
+    if model != "concurrent":
+        opt, spec, deriv = _fit_other_model(data, model, conc.theta)
+        lower, upper = spec.bounds()
     theta = opt.theta.copy()
-    u, v = theta[:k], theta[k:]
+    u, v = theta[:k], theta[k:2 * k]
+    fractions = spec.fractions(theta)
     at_bound = u >= lik.LOG_MODULUS_MAX - 1e-9
     loglik = opt.loglik - specimens.n_failed * centre  # undo the centring's Jacobian shift
-    resp = lik.responsibilities(data, u, v)
+    resp = _responsibilities(spec, data, theta)
     expected = resp.sum(axis=0)
 
     complete_single = k == 1 and specimens.n_survived == 0
-    method = intervals
-    if method == "auto":
-        method = "pivotal" if complete_single else ("profile" if n <= PROFILE_MAX_SPECIMENS else "wald")
-    if method == "pivotal" and not complete_single:
-        raise FlawmixError("pivotal bounds exist only for one population without survivors; "
-                           "use intervals='profile'")
-
+    method = _interval_method(intervals, specimens, complete_single)
     m_hat = np.exp(u)
     unbiased = [None] * k
-    mod_int, str_int = [], []
     if complete_single:
         uf = complete_sample_pivots(n).unbiasing_factor if n <= PIVOT_MAX_SPECIMENS else ross_unbiasing_factor(n)
         unbiased[0] = float(m_hat[0] * uf)
-    lo_p, hi_p = (1 - confidence) / 2, (1 + confidence) / 2
+    mod_int, str_int, frac_int = [], [], [None] * k
+
+    def interval(index, limits=(-np.inf, np.inf)):
+        if method == "profile":
+            return profile_interval(deriv, opt, index, confidence, tie=tie, lower=lower, upper=upper, limits=limits)
+        return wald_interval(opt, index, confidence, tie)
+
     for j in range(k):
         if method == "none":
             mod_int.append((np.nan, np.nan))
             str_int.append((np.nan, np.nan))
         elif method == "pivotal":
-            if n <= PIVOT_MAX_SPECIMENS:
-                piv = complete_sample_pivots(n)
-                q_lo, q_hi = piv.modulus_quantile(lo_p), piv.modulus_quantile(hi_p)
-                t_lo, t_hi = piv.scale_quantile(lo_p), piv.scale_quantile(hi_p)
-            else:  # asymptotic variances of the Weibull MLE: 6/π² and 1 + 6(1−γ)²/π² over N
-                z = _sstats.norm.ppf(hi_p)
-                q_lo, q_hi = 1 - z * np.sqrt(0.6079 / n), 1 + z * np.sqrt(0.6079 / n)
-                t_lo, t_hi = -z * np.sqrt(1.1087 / n), z * np.sqrt(1.1087 / n)
-            mod_int.append((m_hat[j] / q_hi, m_hat[j] / q_lo))
-            str_int.append((np.exp(v[j] + centre - t_hi / m_hat[j]), np.exp(v[j] + centre - t_lo / m_hat[j])))
+            a, b = _pivotal_bounds(n, m_hat[j], v[j] + centre, confidence)
+            mod_int.append(a)
+            str_int.append(b)
         else:
-            ui = tie_index = j
-            vi = k + j
-            if method == "profile":
-                limits_u = (lik.LOG_MODULUS_MIN, lik.LOG_MODULUS_MAX)
-                a, b = profile_interval(deriv, opt, ui, confidence, tie=tie, lower=lower, upper=upper,
-                                        limits=limits_u)
-                if b >= lik.LOG_MODULUS_MAX - 1e-9:
-                    b = np.inf
-                c, d = profile_interval(deriv, opt, vi, confidence, tie=tie, lower=lower, upper=upper)
-            else:
-                a, b = wald_interval(opt, ui, confidence, tie)
-                c, d = wald_interval(opt, vi, confidence, tie)
-            del tie_index
+            a, b = interval(j, (lik.LOG_MODULUS_MIN, lik.LOG_MODULUS_MAX))
+            if b >= lik.LOG_MODULUS_MAX - 1e-9:
+                b = np.inf
+            c, d = interval(k + j)
             mod_int.append((float(np.exp(a)), float(np.exp(b))))
             str_int.append((float(np.exp(c + centre)), float(np.exp(d + centre))))
+    if method in ("profile", "wald") and spec.n_extra == 1:
+        lo_t, hi_t = interval(2 * k, (-30.0, 30.0))
+        sig = lambda t: float(1.0 / (1.0 + np.exp(-t)))
+        if spec.name == "exclusive":   # α is the log-odds of population 0 against population 1
+            frac_int[0] = (sig(lo_t), sig(hi_t))
+            frac_int[1] = (1 - sig(hi_t), 1 - sig(lo_t))
+        else:
+            frac_int[spec.partial_index] = (sig(lo_t), sig(hi_t))
 
     certain = specimens.certain_failures()
     possible = specimens.possible_failures()
@@ -199,12 +271,12 @@ def fit_concurrent_mle(
             characteristic_strength=float(np.exp(v[j] + centre)),
             modulus_interval=mod_int[j], strength_interval=str_int[j], interval_method=method,
             modulus_unbiased=unbiased[j], regression_modulus=rm, regression_strength=rs,
-            at_bound=bool(at_bound[j]),
+            at_bound=bool(at_bound[j]), fraction=float(fractions[j]), fraction_interval=frac_int[j],
         ))
-    n_params = (k + 1) if common_modulus else 2 * k
+    n_params = (k + 1) if common_modulus else spec.n_params
 
     result_tests = []
-    if tests and k >= 2 and not common_modulus:
+    if tests and k >= 2 and not common_modulus and model == "concurrent":
         common, *_ = _maximise(data, common_modulus_tie(k), start=opt.theta)
         stat = max(0.0, 2.0 * (opt.loglik - common.loglik))
         p = float(_sstats.chi2.sf(stat, k - 1))
@@ -217,14 +289,11 @@ def fit_concurrent_mle(
                         "The data do not reject it at the 5 % level."))))
     if not opt.converged:
         notes.append("the maximisation stopped before the score reached its tolerance")
-    for j in np.flatnonzero(at_bound):
-        msg = (f"population '{specimens.populations[j].name}': modulus reached the search bound "
-               f"{np.exp(lik.LOG_MODULUS_MAX):.0f}; the data do not bound it")
-        if msg not in notes:
-            notes.append(msg)
+    notes.extend(_degeneracy_notes(spec, specimens, theta, at_bound))
+    partial_name = specimens.populations[spec.partial_index].name if spec.name == "partial" else None
     return FitResult(
         method="mle",
-        model="concurrent-common-modulus" if common_modulus else "concurrent",
+        model="concurrent-common-modulus" if common_modulus else model,
         confidence=confidence,
         unit=specimens.unit,
         populations=tuple(pops),
@@ -236,7 +305,7 @@ def fit_concurrent_mle(
         log_likelihood=float(loglik),
         n_parameters=n_params,
         tests=tuple(result_tests),
-        warnings=tuple(notes),
+        warnings=tuple(dict.fromkeys(notes)),
         converged=opt.converged,
         max_score=float(np.max(np.abs(opt.gradient))),
         plotting_rule=positions,
@@ -244,4 +313,50 @@ def fit_concurrent_mle(
         checksum=specimens.checksum,
         specimens=specimens,
         extras={"iterations": opt.iterations},
+        partial_population=partial_name,
     )
+
+
+def _responsibilities(spec: lik.Model, data: lik.Data, theta: np.ndarray) -> np.ndarray:
+    """(N, k) probability that population j caused failure i, under the fitted model."""
+    k = spec.k
+    if spec.name == "concurrent":
+        return lik.responsibilities(data, theta[:k], theta[k:2 * k])
+    from .distributions import model_failure_shares
+
+    shares = model_failure_shares(spec.name, np.exp(data.y), np.exp(theta[:k]), np.exp(theta[k:2 * k]),
+                                  spec.fractions(theta), spec.partial_index)
+    shares = np.where(data.candidates, shares, 0.0)
+    total = shares.sum(axis=1, keepdims=True)
+    return np.where(total > 0, shares / np.where(total > 0, total, 1.0), 0.0)
+
+
+def _degeneracy_notes(spec: lik.Model, specimens: Specimens, theta: np.ndarray, at_bound) -> list[str]:
+    names = specimens.population_names
+    notes = []
+    for j in np.flatnonzero(at_bound):
+        if spec.name == "exclusive":
+            notes.append(f"population '{names[j]}': modulus reached the search bound {np.exp(lik.LOG_MODULUS_MAX):.0f}. "
+                         "A mixture likelihood is unbounded when one population collapses onto a few equal-looking "
+                         "strengths; this estimate is not meaningful. Use method='bayes' (proper priors) or the "
+                         "concurrent model")
+        else:
+            notes.append(f"population '{names[j]}': modulus reached the search bound "
+                         f"{np.exp(lik.LOG_MODULUS_MAX):.0f}; the data do not bound it")
+    if spec.name != "concurrent":
+        fr = spec.fractions(theta)
+        for j in range(spec.k):
+            if spec.name == "partial" and j != spec.partial_index:
+                continue
+            if fr[j] > 0.999:
+                notes.append(f"the fraction of specimens carrying '{names[j]}' is at its upper limit (≈ 1): "
+                             f"the {spec.name} model reduces to a simpler one here")
+            elif fr[j] < 0.001:
+                notes.append(f"the fraction of specimens carrying '{names[j]}' is at its lower limit (≈ 0): "
+                             "that population is not supported by the data under this model")
+    return notes
+
+
+def fit_concurrent_mle(specimens: Specimens, confidence: float = 0.90, **options) -> FitResult:
+    """Competing-risk censored MLE of concurrent populations (kept for callers of the first API)."""
+    return fit_mle(specimens, confidence, model="concurrent", **options)

@@ -45,6 +45,8 @@ class PopulationEstimate:
     regression_modulus: float | None = None
     regression_strength: float | None = None
     at_bound: bool = False
+    fraction: float = 1.0
+    fraction_interval: tuple[float, float] | None = None
 
     # scipy.stats-like questions for this population acting alone
     def cdf(self, stress):
@@ -76,6 +78,8 @@ class PopulationEstimate:
             "regression_modulus": _num(self.regression_modulus),
             "regression_strength": _num(self.regression_strength),
             "at_bound": bool(self.at_bound),
+            "fraction": _num(self.fraction),
+            "fraction_interval": None if self.fraction_interval is None else [_num(x) for x in self.fraction_interval],
         }
 
 
@@ -91,6 +95,35 @@ class HypothesisTest:
     def to_dict(self) -> dict[str, Any]:
         return {"name": self.name, "statistic": _num(self.statistic), "df": self.df,
                 "p_value": _num(self.p_value), "method": self.method, "meaning": self.meaning}
+
+
+@dataclass(frozen=True)
+class Draws:
+    """Parameter sets drawn from the posterior (Bayes) or from refits (bootstrap).
+
+    moduli, scales, fractions: (S, k) in natural units; ``chains`` is the number of chains
+    the S draws are split into (emcee walkers), for diagnostics.
+    """
+
+    kind: str
+    moduli: np.ndarray
+    scales: np.ndarray
+    fractions: np.ndarray
+    chains: int = 1
+
+    @property
+    def size(self) -> int:
+        return self.moduli.shape[0]
+
+
+def _summary_frame(samples: np.ndarray, point: np.ndarray, confidence: float, index, name: str) -> pd.DataFrame:
+    lo, hi = (1 - confidence) / 2, (1 + confidence) / 2
+    frame = pd.DataFrame({"estimate": point}, index=index)
+    if samples is not None:
+        frame["low"] = np.quantile(samples, lo, axis=0)
+        frame["high"] = np.quantile(samples, hi, axis=0)
+    frame.index.name = name
+    return frame
 
 
 @dataclass(frozen=True)
@@ -118,6 +151,9 @@ class FitResult:
     checksum: str | None = None
     specimens: Any = field(default=None, repr=False, compare=False)
     extras: dict = field(default_factory=dict, repr=False, compare=False)
+    partial_population: str | None = None
+    draws: Draws | None = field(default=None, repr=False, compare=False)
+    priors: tuple = ()
 
     # ---- derived numbers --------------------------------------------------------------
     @property
@@ -136,6 +172,15 @@ class FitResult:
     def characteristic_strengths(self) -> np.ndarray:
         return np.array([p.characteristic_strength for p in self.populations])
 
+    @property
+    def fractions(self) -> np.ndarray:
+        return np.array([p.fraction for p in self.populations])
+
+    @property
+    def _partial_index(self) -> int:
+        names = [p.name for p in self.populations]
+        return names.index(self.partial_population) if self.partial_population else 0
+
     def population(self, name: str) -> PopulationEstimate:
         for p in self.populations:
             if p.name == name:
@@ -145,7 +190,8 @@ class FitResult:
     # ---- the combined distribution of a specimen -------------------------------------
     def sf(self, stress):
         """Probability that a test specimen survives ``stress`` (all populations acting)."""
-        return dist.concurrent_sf(stress, self.moduli, self.characteristic_strengths)
+        return dist.model_sf(self.model, stress, self.moduli, self.characteristic_strengths,
+                             self.fractions, self._partial_index)
 
     def cdf(self, stress):
         return 1.0 - self.sf(stress)
@@ -161,9 +207,80 @@ class FitResult:
     def failure_shares(self, stress) -> pd.DataFrame:
         """Share of failures at each stress caused by each population (rows: stresses)."""
         s = np.atleast_1d(np.asarray(stress, dtype=float))
-        shares = dist.concurrent_hazard_shares(s, self.moduli, self.characteristic_strengths)
+        shares = dist.model_failure_shares(self.model, s, self.moduli, self.characteristic_strengths,
+                                           self.fractions, self._partial_index)
         return pd.DataFrame(shares, index=pd.Index(s, name=f"stress ({self.unit})"),
                             columns=[p.name for p in self.populations])
+
+    # ---- derived quantities with intervals (from posterior or bootstrap draws) ------------
+    def _point_params(self):
+        return self.moduli[None, :], self.characteristic_strengths[None, :], self.fractions[None, :]
+
+    def failure_probability(self, stress) -> pd.DataFrame:
+        """Failure probability of a test specimen at each stress: estimate and, when the fit
+        carries draws (Bayes, bootstrap), the interval at the result's confidence."""
+        s = np.atleast_1d(np.asarray(stress, dtype=float))
+        point = 1.0 - dist.model_sf_rows(self.model, s, *self._point_params(), self._partial_index)[0]
+        samples = None
+        if self.draws is not None:
+            d = self.draws
+            samples = 1.0 - dist.model_sf_rows(self.model, s, d.moduli, d.scales, d.fractions, self._partial_index)
+            if self.method == "bayes":
+                point = np.median(samples, axis=0)
+        return _summary_frame(samples, point, self.confidence, pd.Index(s), f"stress ({self.unit})")
+
+    def strength_at(self, probability) -> pd.DataFrame:
+        """Stress at which a test specimen's failure probability equals each ``probability``."""
+        ps = np.atleast_1d(np.asarray(probability, dtype=float))
+        if np.any((ps <= 0) | (ps >= 1)):
+            raise FlawmixError("failure probabilities must lie strictly between 0 and 1")
+        point = np.array([dist.model_ppf(self.model, p, *self._point_params(), self._partial_index)[0] for p in ps])
+        samples = None
+        if self.draws is not None:
+            d = self.draws
+            samples = np.stack([dist.model_ppf(self.model, p, d.moduli, d.scales, d.fractions, self._partial_index)
+                                for p in ps], axis=1)
+            if self.method == "bayes":
+                point = np.median(samples, axis=0)
+        return _summary_frame(samples, point, self.confidence, pd.Index(ps), "failure probability")
+
+    def failure_share_intervals(self, stress) -> pd.DataFrame:
+        """Share of failures from each population at each stress, with intervals when draws exist.
+
+        Rows: (stress, population); columns: estimate, low, high."""
+        s = np.atleast_1d(np.asarray(stress, dtype=float))
+        names = [p.name for p in self.populations]
+        point = dist.model_failure_shares(self.model, s, self.moduli, self.characteristic_strengths,
+                                          self.fractions, self._partial_index)        # (T, k)
+        samples = None
+        if self.draws is not None:
+            d = self.draws
+            samples = np.stack([dist.model_failure_shares(self.model, s, d.moduli[i], d.scales[i], d.fractions[i],
+                                                          self._partial_index)
+                                for i in range(0, d.size, max(1, d.size // 2000))])      # (S, T, k)
+            if self.method == "bayes":
+                point = np.median(samples, axis=0)
+            samples = samples.reshape(samples.shape[0], -1)
+        index = pd.MultiIndex.from_product([s, names], names=[f"stress ({self.unit})", "population"])
+        frame = _summary_frame(samples, point.reshape(-1), self.confidence, index, None)
+        frame.index.names = [f"stress ({self.unit})", "population"]
+        return frame
+
+    @property
+    def posterior(self):
+        """The posterior as arviz InferenceData (arviz 0.x) or DataTree (1.x); Bayes fits only."""
+        if self.method != "bayes" or self.draws is None:
+            raise FlawmixError("only a Bayesian fit (method='bayes') has a posterior")
+        from . import _arviz
+
+        d = self.draws
+        c = d.chains
+        shape = lambda a: a.reshape(-1, c, a.shape[-1]).transpose(1, 0, 2)
+        post = {f"modulus[{p.name}]": shape(d.moduli)[..., j] for j, p in enumerate(self.populations)}
+        post.update({f"characteristic_strength[{p.name}]": shape(d.scales)[..., j] for j, p in enumerate(self.populations)})
+        if not self.model.startswith("concurrent"):
+            post.update({f"fraction[{p.name}]": shape(d.fractions)[..., j] for j, p in enumerate(self.populations)})
+        return _arviz.to_inference_data(post)
 
     # ---- presentation -----------------------------------------------------------------
     def summary(self) -> pd.DataFrame:
@@ -183,6 +300,7 @@ class FitResult:
                 f"strength {pct} low": p.strength_interval[0],
                 f"strength {pct} high": p.strength_interval[1],
                 "unbiased modulus": p.modulus_unbiased,
+                "fraction": p.fraction,
                 "interval method": p.interval_method,
             })
         return pd.DataFrame(rows).set_index("population")
@@ -210,6 +328,8 @@ class FitResult:
             "plotting_rule": self.plotting_rule,
             "source": self.source,
             "checksum_sha256": self.checksum,
+            "partial_population": self.partial_population,
+            **({"priors": list(self.priors)} if self.priors else {}),
             **{k: v for k, v in self.extras.items() if isinstance(v, (dict, list, str, int, float, type(None)))},
         }
 
@@ -250,6 +370,14 @@ def format_result(r: FitResult) -> str:
             f"{p.name[:17]:<18}{p.kind:<12}{p.n_failures:>5}{p.expected_failures:>7.1f}  {_fmt(p.modulus):>8}  {mi:<19}"
             f"{_fmt(p.characteristic_strength):>9}  {si:<21}{_fmt(p.modulus_unbiased):>10}"
         )
+    if not r.model.startswith("concurrent"):
+        lines.append("")
+        for p in r.populations:
+            fi = "" if p.fraction_interval is None else f" [{_fmt(p.fraction_interval[0], 3)}, {_fmt(p.fraction_interval[1], 3)}]"
+            lines.append(f"share of specimens carrying {p.name}: {_fmt(p.fraction, 3)}{fi}")
+        if r.partial_population:
+            lines.append(f"(partial model: every specimen carries the other population(s); "
+                         f"only a fraction carries {r.partial_population})")
     methods = sorted({p.interval_method for p in r.populations})
     lines.append("")
     lines.append(f"intervals: {', '.join(methods)}; log-likelihood {r.log_likelihood:.4f}, "
@@ -260,7 +388,13 @@ def format_result(r: FitResult) -> str:
                      + "; ".join(f"{p.name} m={_fmt(p.regression_modulus, 3)} σθ={_fmt(p.regression_strength)}" for p in reg))
     for t in r.tests:
         lines.append(f"test {t.name}: statistic {t.statistic:.3f}, df {t.df}, p = {t.p_value:.3g} ({t.method}). {t.meaning}")
-    if not r.converged:
+    diag = r.extras.get("diagnostics")
+    if diag:
+        lines.append(f"sampler: R-hat max {diag['r_hat_max']:.4f}, bulk ESS min {diag['ess_bulk_min']:.0f}, "
+                     f"tail ESS min {diag['ess_tail_min']:.0f}; {r.extras.get('draws', 0)} draws")
+    if "elpd_loo" in r.extras:
+        lines.append(f"PSIS-LOO: elpd {r.extras['elpd_loo']:.2f} ± {r.extras['elpd_loo_se']:.2f}")
+    if not r.converged and r.method == "mle":
         lines.append("WARNING: the maximisation did not reach the convergence tolerance; treat estimates with care.")
     for w in r.warnings:
         lines.append(f"warning: {w}")
