@@ -29,6 +29,14 @@ def _add_grouping(p: argparse.ArgumentParser) -> None:
 
 
 def _add_fit_options(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--method", default="mle", choices=["mle", "bayes"],
+                   help="maximum likelihood (default) or Bayesian (emcee) fit")
+    p.add_argument("--model", default="concurrent", choices=["concurrent", "exclusive", "partial"],
+                   help="how populations share specimens (default concurrent: every specimen carries all)")
+    p.add_argument("--seed", type=int, help="seed of the sampler (default: the study file's, else 0)")
+    p.add_argument("--progress", action="store_true", help="show a progress bar while sampling")
+    p.add_argument("--reference-prior", action="store_true",
+                   help="Bayes: prior 1/(σθ m) instead of the weak defaults (improper; see README)")
     p.add_argument("--confidence", type=float, help="two-sided interval level (default 0.90)")
     p.add_argument("--intervals", default="auto", choices=["auto", "profile", "wald", "pivotal", "none"],
                    help="interval method (default auto: pivotal for one complete population, else profile)")
@@ -58,8 +66,14 @@ def _fit_from_args(args, study, specimens):
     from .fit import fit
 
     confidence = args.confidence if args.confidence is not None else (study.confidence or 0.90)
-    return fit(specimens, confidence=confidence, intervals=args.intervals, positions=args.positions,
-               common_modulus=args.common_modulus)
+    seed = args.seed if getattr(args, "seed", None) is not None else (study.seed if study.seed is not None else 0)
+    options = {}
+    if getattr(args, "method", "mle") == "bayes":
+        options = {"priors": study.priors or None, "reference_prior": args.reference_prior, "seed": seed,
+                   "progress": args.progress}
+    return fit(specimens, method=getattr(args, "method", "mle"), model=getattr(args, "model", "concurrent"),
+               confidence=confidence, intervals=args.intervals, positions=args.positions,
+               common_modulus=args.common_modulus, **options)
 
 
 def _print_warnings(result) -> None:
@@ -75,6 +89,19 @@ def cmd_fit(args) -> int:
     else:
         print(result)
     _print_warnings(result)
+    return 0
+
+
+def cmd_compare(args) -> int:
+    from .compare import compare
+
+    study, specimens = _load(args)
+    seed = args.seed if args.seed is not None else (study.seed if study.seed is not None else 0)
+    result = compare(specimens, bayes=not args.no_bayes, bootstrap=args.bootstrap, seed=seed)
+    if args.json:
+        print(json.dumps(result.to_dict(), indent=2, ensure_ascii=False))
+    else:
+        print(result)
     return 0
 
 
@@ -110,6 +137,16 @@ def build_parser() -> argparse.ArgumentParser:
     _add_fit_options(p)
     p.add_argument("--json", action="store_true", help="print the result as JSON (schema in README)")
     p.set_defaults(func=cmd_fit)
+
+    p = sub.add_parser("compare", help="compare single, concurrent, exclusive and partial models")
+    p.add_argument("specimens", nargs="?", help="specimen table (.csv or .xlsx); may come from the study file")
+    _add_grouping(p)
+    p.add_argument("--no-bayes", action="store_true", help="skip the Bayesian fits (no PSIS-LOO; faster)")
+    p.add_argument("--bootstrap", type=int, default=199, metavar="N",
+                   help="parametric-bootstrap replicates for the boundary test (default 199, 0 = skip)")
+    p.add_argument("--seed", type=int, help="seed (default: the study file's, else 0)")
+    p.add_argument("--json", action="store_true", help="print the comparison as JSON")
+    p.set_defaults(func=cmd_compare)
 
     p = sub.add_parser("demo", help="run the analysis on the embedded, invented demo data")
     p.set_defaults(func=cmd_demo)

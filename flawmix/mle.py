@@ -138,7 +138,8 @@ def _pivotal_bounds(n, m_hat, log_scale, confidence):
             (np.exp(log_scale - t_hi / m_hat), np.exp(log_scale - t_lo / m_hat)))
 
 
-def _fit_other_model(data: lik.Data, model_name: str, concurrent_theta: np.ndarray):
+def _fit_other_model(data: lik.Data, model_name: str, concurrent_theta: np.ndarray,
+                     logit_starts=(2.0, 0.0, -1.0)):
     """Exclusive or partial model: Newton on numerical derivatives from several starts."""
     k = data.k
     F = data.failed
@@ -167,7 +168,7 @@ def _fit_other_model(data: lik.Data, model_name: str, concurrent_theta: np.ndarr
     else:
         for a in range(k):
             model = lik.Model("partial", k, a)
-            starts = [np.concatenate([concurrent_theta, [t]]) for t in (2.0, 0.0, -1.0)]
+            starts = [np.concatenate([concurrent_theta, [t]]) for t in logit_starts]
             candidates.append((model, starts))
     best = None
     for model, starts in candidates:

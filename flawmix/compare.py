@@ -1,0 +1,237 @@
+"""Model choice: one pooled population, concurrent, exclusive or partially concurrent?
+
+Every candidate is scored on the same data, origin labels included: the single pooled
+population explains the labels as independent of strength (its likelihood carries their
+multinomial term), which is the same likelihood as concurrent populations with one common
+modulus. Scores: log-likelihood, AIC, BIC, and PSIS-LOO from Bayesian fits; tests:
+likelihood ratios, by parametric bootstrap where the null sits on a boundary.
+"""
+from __future__ import annotations
+
+import math
+import warnings as _warnings
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+import pandas as pd
+from scipy import stats as _sstats
+
+from . import likelihood as lik
+from .errors import FlawmixError, FlawmixWarning
+from .result import FitResult, HypothesisTest, _num
+from .simulate import Design, replicate, simulate
+from .specimens import Specimens
+
+
+@dataclass(frozen=True)
+class Comparison:
+    """Scores of every candidate model on one data set, a preferred model and a verdict."""
+
+    table: pd.DataFrame
+    preferred: str
+    verdict: str
+    tests: tuple[HypothesisTest, ...]
+    fits: dict[str, FitResult] = field(repr=False, compare=False)
+    criterion: str = "elpd_loo"
+
+    def to_dict(self) -> dict[str, Any]:
+        models = []
+        for name, row in self.table.iterrows():
+            entry = {"model": name, "elpd_loo": None, "elpd_loo_se": None}
+            for c in self.table.columns:
+                if c == "note":
+                    entry[c] = row[c] or None
+                elif c in ("n_parameters", "pareto_k_bad"):
+                    entry[c] = int(row[c])
+                else:
+                    entry[c] = _num(row[c])
+            models.append(entry)
+        return {"models": models, "preferred": self.preferred, "verdict": self.verdict,
+                "criterion": self.criterion, "tests": [t.to_dict() for t in self.tests]}
+
+    def __str__(self) -> str:
+        t = self.table.copy()
+        lines = ["flawmix: model comparison (same data, origin labels included)", ""]
+        cols = [c for c in ["n_parameters", "log_likelihood", "aic", "bic", "elpd_loo", "elpd_loo_se"] if c in t]
+        lines.append(t[cols].to_string(float_format=lambda x: f"{x:.2f}"))
+        notes = t["note"].dropna() if "note" in t else []
+        for name, note in getattr(notes, "items", lambda: [])():
+            if note:
+                lines.append(f"  {name}: {note}")
+        lines.append("")
+        for test in self.tests:
+            lines.append(f"test {test.name}: statistic {test.statistic:.3f}, p = {test.p_value:.3g} ({test.method})")
+        lines.append("")
+        lines.append(f"preferred: {self.preferred}")
+        lines.append(self.verdict)
+        return "\n".join(lines)
+
+
+def _strength_words(z: float) -> str:
+    if z < 1:
+        return "no real preference"
+    if z < 2:
+        return "weak evidence"
+    if z < 4:
+        return "moderate evidence"
+    return "strong evidence"
+
+
+def _bootstrap_partial_vs_concurrent(specimens: Specimens, concurrent: FitResult, observed: float,
+                                     replicates: int, seed) -> tuple[float, int]:
+    """p-value of the LR statistic partial vs concurrent under the fitted concurrent model.
+
+    partial with fraction 1 is concurrent: the null sits on the boundary, so Wilks' χ² does
+    not hold (DOMAIN.md section 2); simulate the statistic instead."""
+    from .mle import _fit_other_model, _maximise
+
+    k = len(specimens.populations)
+    design = Design.like(specimens)
+    rng = np.random.default_rng(seed)
+    centre = float(np.mean(np.log(specimens.strength)))
+    sims = simulate(lik.Model("concurrent", k), concurrent.moduli, concurrent.characteristic_strengths / np.exp(centre),
+                    None, design, replicates, rng)
+    exceed = 0
+    used = 0
+    for r in range(replicates):
+        data = replicate(sims, r)
+        if np.any(data.candidates[data.failed].sum(axis=0) == 0):
+            continue   # a population without failures: no fit, as with real data
+        conc, *_ = _maximise(data)
+        # under the null the fraction is 1: one start near that boundary is enough
+        part = _fit_other_model(data, "partial", conc.theta, logit_starts=(3.0,))[0]
+        used += 1
+        if 2 * (part.loglik - conc.loglik) >= observed - 1e-9:
+            exceed += 1
+    return (1 + exceed) / (1 + used), used
+
+
+def compare(
+    specimens: Specimens,
+    *,
+    bayes: bool = True,
+    bootstrap: int = 199,
+    confidence: float = 0.90,
+    seed: int = 0,
+    target_ess: float = 1000.0,
+) -> Comparison:
+    """Fit every candidate model and say which the data support, and how strongly.
+
+    Args:
+        bayes: also run the Bayesian fits and score by PSIS-LOO (slower, the default).
+        bootstrap: parametric-bootstrap replicates for the partial-vs-concurrent test (0: skip).
+    """
+    from .fit import fit
+
+    k = len(specimens.populations)
+    with _warnings.catch_warnings():
+        _warnings.simplefilter("ignore", FlawmixWarning)
+        fits: dict[str, FitResult] = {}
+        fits["single"] = fit(specimens, model="concurrent", common_modulus=True, intervals="none") if k > 1 else \
+            fit(specimens, intervals="none")
+        if k > 1:
+            fits["concurrent"] = fit(specimens, model="concurrent", intervals="none")
+            fits["concurrent-common-modulus"] = fits["single"]
+            fits["exclusive"] = fit(specimens, model="exclusive", intervals="none")
+            fits["partial"] = fit(specimens, model="partial", intervals="none")
+        bayes_fits: dict[str, FitResult] = {}
+        if bayes:
+            for name in fits:
+                if name == "concurrent-common-modulus":
+                    continue
+                model = "concurrent" if name in ("single", "concurrent") else name
+                bayes_fits[name] = fit(specimens, method="bayes", model=model, common_modulus=(name == "single" and k > 1),
+                                       seed=seed, target_ess=target_ess, confidence=confidence)
+            if k > 1:
+                bayes_fits["concurrent-common-modulus"] = bayes_fits["single"]
+
+    rows = {}
+    for name, f in fits.items():
+        row = {"n_parameters": f.n_parameters, "log_likelihood": f.log_likelihood, "aic": f.aic, "bic": f.bic}
+        if bayes:
+            b = bayes_fits[name]
+            row["elpd_loo"] = b.extras["elpd_loo"]
+            row["elpd_loo_se"] = b.extras["elpd_loo_se"]
+            row["pareto_k_bad"] = b.extras["pareto_k_bad"]
+        note = ""
+        if name == "single" and k > 1:
+            note = "one Weibull population, origin shares independent of strength"
+        elif name == "concurrent-common-modulus":
+            note = "same likelihood as 'single': with one modulus the origin shares do not change with stress"
+        elif name == "partial" and f.partial_population:
+            note = f"a fraction of the specimens carries '{f.partial_population}', all carry the rest"
+        degenerate = [w for w in f.warnings if "bound" in w or "limit" in w]
+        if degenerate:
+            note = (note + "; " if note else "") + degenerate[0]
+        row["note"] = note
+        rows[name] = row
+    table = pd.DataFrame.from_dict(rows, orient="index")
+    table.index.name = "model"
+
+    criterion = "elpd_loo" if bayes else "aic"
+    order = table["elpd_loo"].sort_values(ascending=False).index if bayes else table["aic"].sort_values().index
+    order = [n for n in order if n != "concurrent-common-modulus"]
+    preferred = order[0]
+    tests: list[HypothesisTest] = []
+    if k > 1:
+        conc = fits["concurrent"]
+        if conc.tests:
+            t = conc.tests[0]
+            tests.append(HypothesisTest("single-vs-concurrent", t.statistic, t.df, t.p_value, t.method,
+                                        "Null: one pooled population (a common modulus)."))
+        stat = max(0.0, 2 * (fits["exclusive"].log_likelihood - fits["single"].log_likelihood))
+        df = fits["exclusive"].n_parameters - fits["single"].n_parameters
+        tests.append(HypothesisTest("single-vs-exclusive", stat, df, float(_sstats.chi2.sf(stat, df)),
+                                    "likelihood ratio, χ²", "Null: one pooled population; alternative: each "
+                                    "specimen carries one population (identical populations give the null)."))
+        if bootstrap:
+            stat = max(0.0, 2 * (fits["partial"].log_likelihood - conc.log_likelihood))
+            p, used = _bootstrap_partial_vs_concurrent(specimens, conc, stat, bootstrap, seed)
+            tests.append(HypothesisTest("concurrent-vs-partial", stat, 1, p,
+                                        f"likelihood ratio, parametric bootstrap ({used} replicates; the null is on "
+                                        "the boundary fraction = 1, so χ² does not apply)",
+                                        "Null: every specimen carries every population."))
+
+    verdict = _verdict(table, order, bayes, bayes_fits, specimens)
+    return Comparison(table, preferred, verdict, tuple(tests), {**fits, **{f"{n} (bayes)": b for n, b in bayes_fits.items()}},
+                      criterion)
+
+
+def _verdict(table, order, bayes, bayes_fits, specimens) -> str:
+    if len(order) == 1:
+        return "Only one population is defined, so there is nothing to compare."
+    best, second = order[0], order[1]
+    if bayes:
+        a = np.asarray(bayes_fits[best].extras["elpd_loo_pointwise"])
+        b = np.asarray(bayes_fits[second].extras["elpd_loo_pointwise"])
+        diff = a - b
+        delta = float(diff.sum())
+        se = float(math.sqrt(diff.size * np.var(diff))) if diff.size > 1 else float("nan")
+        z = delta / se if se > 0 else float("inf")
+        words = _strength_words(z)
+        text = (f"By leave-one-out predictive accuracy (PSIS-LOO) the '{best}' model is preferred over "
+                f"'{second}' by {delta:.1f} ± {se:.1f} in expected log predictive density: {words}.")
+    else:
+        delta = float(table.loc[second, "aic"] - table.loc[best, "aic"])
+        words = ("no real preference" if delta < 2 else "weak evidence" if delta < 4 else
+                 "moderate evidence" if delta < 10 else "strong evidence")
+        text = f"By AIC the '{best}' model is preferred over '{second}' by {delta:.1f}: {words}."
+    if words == "no real preference":
+        simpler = min((best, second), key=lambda n: table.loc[n, "n_parameters"])
+        text += (f" The data cannot tell these two apart; prefer the simpler ('{simpler}'), and test more "
+                 "specimens (or identify more origins) if the choice matters.")
+    if "single" not in (best, second) and "single" in table.index:
+        if bayes:
+            diff = np.asarray(bayes_fits[best].extras["elpd_loo_pointwise"]) - \
+                np.asarray(bayes_fits["single"].extras["elpd_loo_pointwise"])
+            d, se = float(diff.sum()), float(math.sqrt(diff.size * np.var(diff)))
+            text += (f" One pooled population is worse than '{best}' by {d:.1f} ± {se:.1f} "
+                     f"({_strength_words(d / se if se > 0 else float('inf'))} that the flaw populations differ).")
+        else:
+            d = float(table.loc["single", "aic"] - table.loc[best, "aic"])
+            text += f" One pooled population is worse than '{best}' by {d:.1f} in AIC."
+    bad = int(table.get("pareto_k_bad", pd.Series(dtype=float)).fillna(0).max()) if bayes else 0
+    if bad:
+        text += f" Some PSIS-LOO estimates are unreliable (Pareto k > 0.7 for up to {bad} specimens)."
+    return text

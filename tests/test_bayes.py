@@ -1,0 +1,155 @@
+"""Bayesian fits: agreement with exact posteriors, with the MLE, reproducibility, diagnostics."""
+import json
+import subprocess
+import sys
+
+import numpy as np
+import pandas as pd
+import pytest
+from scipy import special
+
+import flawmix as fm
+from flawmix.bayes import fit_bayes
+from flawmix.pivots import complete_sample_pivots
+
+from conftest import simulate_campaign
+
+
+def _grid_posterior_quantiles(strength, qs, n=700):
+    """Posterior of (ln m, ln σθ) under the prior 1/(σθ m) (flat in logs), by brute-force
+    numerical integration on a grid with scipy.special.logsumexp: marginal quantiles of m."""
+    y = np.log(strength)
+    u = np.linspace(np.log(1.0), np.log(40.0), n)
+    v = np.linspace(y.mean() - 1.0, y.mean() + 1.0, n)
+    U, V = np.meshgrid(u, v, indexing="ij")
+    m = np.exp(U)[..., None]
+    z = m * (y - V[..., None])
+    logpost = (U[..., None] - y + z - np.exp(z)).sum(-1)
+    marg = special.logsumexp(logpost, axis=1)
+    w = np.exp(marg - marg.max())
+    cdf = np.cumsum(w) / w.sum()
+    return np.exp(np.interp(qs, cdf, u))
+
+
+def test_sampler_matches_exact_posterior_with_reference_prior():
+    rng = np.random.default_rng(41)
+    s = 350 * rng.weibull(9, 12)
+    r = fit_bayes(fm.read_specimens(pd.DataFrame({"strength": s})), reference_prior=True, loo=False, seed=1)
+    exact = _grid_posterior_quantiles(s, [0.05, 0.5, 0.95])
+    ours = np.quantile(r.draws.moduli[:, 0], [0.05, 0.5, 0.95])
+    # Monte Carlo error of quantiles with ESS >= 1000 is about 1-2 %
+    np.testing.assert_allclose(ours, exact, rtol=0.03)
+
+
+def test_posterior_median_approaches_mle_for_large_samples():
+    rng = np.random.default_rng(42)
+    frame = simulate_campaign(rng, n=1500, unknown=0.2)
+    sp = fm.read_specimens(frame)
+    mle = fm.fit(sp, intervals="none")
+    bay = fit_bayes(sp, loo=False, seed=2)
+    np.testing.assert_allclose(bay.moduli, mle.moduli, rtol=0.03)
+    np.testing.assert_allclose(bay.characteristic_strengths, mle.characteristic_strengths, rtol=0.003)
+
+
+def test_same_seed_same_draws_and_diagnostics_reported():
+    rng = np.random.default_rng(43)
+    sp = fm.read_specimens(simulate_campaign(rng, n=40, unknown=0.25))
+    a = fm.fit(sp, method="bayes", seed=7)
+    b = fm.fit(sp, method="bayes", seed=7)
+    np.testing.assert_array_equal(a.draws.moduli, b.draws.moduli)
+    d = a.to_dict()
+    assert d["method"] == "bayes"
+    diag = d["diagnostics"]
+    assert diag["r_hat_max"] <= 1.01 and diag["ess_bulk_min"] >= 1000
+    assert set(diag) == {"r_hat_max", "ess_bulk_min", "ess_tail_min"}
+    assert len(d["priors"]) == 2 and "default" in d["priors"][0]["modulus"]
+    for p in a.populations:
+        assert p.modulus_interval[0] < p.modulus < p.modulus_interval[1]
+
+
+def test_short_run_warns_that_targets_were_missed():
+    rng = np.random.default_rng(44)
+    sp = fm.read_specimens(simulate_campaign(rng, n=30))
+    with pytest.warns(fm.FlawmixWarning, match="did not reach R-hat"):
+        r = fit_bayes(sp, max_steps=500, target_ess=1e6, loo=False)
+    assert not r.converged
+
+
+def test_user_prior_pulls_the_estimate_and_is_recorded():
+    rng = np.random.default_rng(45)
+    sp = fm.read_specimens(simulate_campaign(rng, n=12))
+    tight = {"pore": {"modulus": [19.0, 21.0]}}
+    r = fit_bayes(sp, priors=tight, loo=False)
+    assert 18.5 < r.population("pore").modulus < 21.5
+    described = {d["population"]: d for d in r.priors}
+    assert "(user)" in described["pore"]["modulus"] and "(default)" in described["machining"]["modulus"]
+    with pytest.raises(fm.FlawmixError, match="unknown population"):
+        fit_bayes(sp, priors={"nope": {"modulus": [1, 2]}})
+
+
+def test_derived_quantities_have_credible_intervals():
+    rng = np.random.default_rng(46)
+    sp = fm.read_specimens(simulate_campaign(rng, n=40))
+    r = fm.fit(sp, method="bayes", seed=1)
+    pf = r.failure_probability([350.0, 420.0])
+    assert (pf["low"] < pf["estimate"]).all() and (pf["estimate"] < pf["high"]).all()
+    st = r.strength_at([0.1])
+    # consistency: the failure probability at the median strength-at-10 % is about 10 %
+    assert float(r.failure_probability(st["estimate"].iloc[0])["estimate"].iloc[0]) == pytest.approx(0.1, abs=0.02)
+    shares = r.failure_share_intervals([300.0])
+    assert shares["estimate"].sum() == pytest.approx(1.0, abs=0.02)
+
+
+def test_cli_bayes_json():
+    proc = subprocess.run([sys.executable, "-m", "flawmix", "demo"], capture_output=True, text=True)
+    assert proc.returncode == 0
+
+
+@pytest.mark.slow
+def test_reference_prior_credible_intervals_have_exact_coverage():
+    # DOMAIN.md section 3 [mem]: with the right-Haar prior 1/(σθ m) on complete data, 90 %
+    # equal-tailed credible intervals cover the truth in 90 % of repeated samples, with an
+    # average width close to that of the pivotal bounds.
+    rng = np.random.default_rng(47)
+    n, reps, m_true, s_true = 10, 300, 8.0, 400.0
+    cover_m = cover_s = 0
+    width_ratio = []
+    piv = complete_sample_pivots(n)
+    for i in range(reps):
+        s = s_true * rng.weibull(m_true, n)
+        r = fit_bayes(fm.read_specimens(pd.DataFrame({"strength": s})), reference_prior=True, loo=False,
+                      seed=i, target_ess=600)
+        p = r.populations[0]
+        cover_m += p.modulus_interval[0] < m_true < p.modulus_interval[1]
+        cover_s += p.strength_interval[0] < s_true < p.strength_interval[1]
+        mle = fm.fit(pd.DataFrame({"strength": s}), intervals="none").populations[0].modulus
+        pivotal = mle / piv.modulus_quantile(0.05) - mle / piv.modulus_quantile(0.95)
+        width_ratio.append((p.modulus_interval[1] - p.modulus_interval[0]) / pivotal)
+    sd = np.sqrt(0.9 * 0.1 / reps)
+    assert abs(cover_m / reps - 0.9) < 3 * sd
+    assert abs(cover_s / reps - 0.9) < 3 * sd
+    assert np.mean(width_ratio) == pytest.approx(1.0, abs=0.1)
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("model", ["concurrent", "exclusive"])
+def test_multi_population_credible_intervals_cover(model):
+    from flawmix import likelihood as lik
+    from flawmix.simulate import Design, replicate, simulate
+
+    rng = np.random.default_rng(48)
+    M, S = np.array([5.0, 16.0]), np.array([480.0, 450.0])
+    fr = np.array([0.4, 0.6])
+    reps = 100
+    sims = simulate(lik.Model(model, 2), M, S, fr, Design.simple(60, 0.2), reps, rng)
+    hits = np.zeros(4)
+    for r in range(reps):
+        d = replicate(sims, r)
+        origin = np.where(d.candidates.sum(-1) > 1, "?", np.array(["a", "b"])[d.candidates.argmax(-1)])
+        res = fit_bayes(fm.read_specimens(pd.DataFrame({"strength": np.exp(d.y), "origin": origin})),
+                        model=model, loo=False, seed=r, target_ess=600)
+        for j, p in enumerate(res.populations):
+            hits[2 * j] += p.modulus_interval[0] < M[j] < p.modulus_interval[1]
+            hits[2 * j + 1] += p.strength_interval[0] < S[j] < p.strength_interval[1]
+    # weak priors: coverage about nominal (3 binomial standard deviations)
+    assert np.all(np.abs(hits / reps - 0.9) < 3 * np.sqrt(0.09 / reps) + 0.02)

@@ -1,0 +1,120 @@
+"""Exclusive and partially concurrent models: likelihood checks and parameter recovery."""
+import numpy as np
+import pandas as pd
+import pytest
+from scipy import integrate, stats
+
+import flawmix as fm
+from flawmix import likelihood as lik
+from flawmix.simulate import Design, simulate
+
+M, S = np.array([5.0, 18.0]), np.array([420.0, 460.0])
+
+
+def _origin_density(model, theta, stress, j):
+    """Density of failing at `stress` from population j, read off the model's likelihood."""
+    data = lik.Data(np.log(np.atleast_1d(stress)), np.array([True]), np.array([[i == j for i in range(2)]]))
+    return float(np.exp(model.pointwise(data, theta))[0])
+
+
+def _survival(model, theta, stress):
+    data = lik.Data(np.log(np.atleast_1d(stress)), np.array([False]), np.zeros((1, 2), bool))
+    return float(np.exp(model.pointwise(data, theta))[0])
+
+
+@pytest.mark.parametrize("model, extra", [
+    (lik.Model("concurrent", 2), []),
+    (lik.Model("exclusive", 2), [np.log(0.3 / 0.7)]),
+    (lik.Model("partial", 2, 0), [np.log(0.4 / 0.6)]),
+    (lik.Model("partial", 2, 1), [np.log(0.8 / 0.2)]),
+])
+def test_failure_densities_integrate_to_the_failure_probability(model, extra):
+    # Brute force (scipy.integrate.quad): ∫_0^σ Σ_j density_j = 1 − S(σ), so the per-origin
+    # terms of the likelihood and its survivor term describe one distribution.
+    theta = np.concatenate([np.log(M), np.log(S), extra])
+    for sigma in (250.0, 400.0, 470.0):
+        total = sum(integrate.quad(lambda x: _origin_density(model, theta, x, j), 1e-6, sigma,
+                                   limit=200, epsabs=1e-12)[0] for j in range(2))
+        assert total == pytest.approx(1.0 - _survival(model, theta, sigma), abs=1e-8)
+
+
+def test_likelihood_terms_match_scipy_weibull_formulas():
+    # DOMAIN.md section 2, written with scipy.stats.weibull_min: exclusive failure from A is
+    # p_A f_A, partial failure from A is p f_A S_B, from B is f_B[(1 − p) + p S_A].
+    a = stats.weibull_min(M[0], scale=S[0])
+    b = stats.weibull_min(M[1], scale=S[1])
+    p = 0.3
+    x = 430.0
+    ex = lik.Model("exclusive", 2)
+    th = np.concatenate([np.log(M), np.log(S), [np.log(p / (1 - p))]])
+    assert _origin_density(ex, th, x, 0) == pytest.approx(p * a.pdf(x), rel=1e-12)
+    assert _origin_density(ex, th, x, 1) == pytest.approx((1 - p) * b.pdf(x), rel=1e-12)
+    assert _survival(ex, th, x) == pytest.approx(p * a.sf(x) + (1 - p) * b.sf(x), rel=1e-12)
+    pa = lik.Model("partial", 2, 0)
+    assert _origin_density(pa, th, x, 0) == pytest.approx(p * a.pdf(x) * b.sf(x), rel=1e-12)
+    assert _origin_density(pa, th, x, 1) == pytest.approx(b.pdf(x) * ((1 - p) + p * a.sf(x)), rel=1e-12)
+    assert _survival(pa, th, x) == pytest.approx(b.sf(x) * ((1 - p) + p * a.sf(x)), rel=1e-12)
+
+
+def test_partial_with_fraction_one_is_concurrent():
+    rng = np.random.default_rng(2)
+    data = simulate(lik.Model("concurrent", 2), M, S, None, Design.simple(30, 0.3), 1, rng)
+    th = np.concatenate([np.log(M), np.log(S)])
+    conc = lik.Model("concurrent", 2).loglik(data, th)
+    part = lik.Model("partial", 2, 0).loglik(data, np.concatenate([th, [40.0]]))
+    assert part == pytest.approx(conc, abs=1e-9)
+
+
+def _frame_from(data, names=("a", "b")):
+    origin = np.where(data.candidates.sum(-1) > 1, "?", np.array(names)[data.candidates.argmax(-1)])
+    origin = np.where(data.failed, origin, "")
+    return pd.DataFrame({"strength": np.exp(data.y), "origin": origin,
+                         "status": np.where(data.failed, "failed", "survived")})
+
+
+@pytest.mark.parametrize("name, partial_index, fraction", [("exclusive", 0, 0.35), ("partial", 0, 0.4)])
+def test_models_recover_known_parameters(name, partial_index, fraction):
+    rng = np.random.default_rng(17)
+    model = lik.Model(name, 2, partial_index)
+    fr = np.array([fraction, 1 - fraction]) if name == "exclusive" else np.array([fraction, 1.0])
+    data = simulate(model, M, S, fr, Design.simple(800, 0.1), 1, rng)
+    r = fm.fit(_frame_from(lik.Data(data.y[0], data.failed[0], data.candidates[0])), model=name,
+               intervals="wald", confidence=0.999)
+    for j, p in enumerate(r.populations):
+        assert p.modulus_interval[0] < M[j] < p.modulus_interval[1]
+        assert p.strength_interval[0] < S[j] < p.strength_interval[1]
+    j = partial_index
+    assert r.populations[j].fraction_interval[0] < fr[j] < r.populations[j].fraction_interval[1]
+    if name == "partial":
+        assert r.partial_population == "a"
+
+
+def test_exclusive_and_partial_mle_not_beaten_by_generic_optimiser():
+    from scipy import optimize
+    rng = np.random.default_rng(5)
+    data = simulate(lik.Model("exclusive", 2), M, S, [0.4, 0.6], Design.simple(50, 0.3), 1, rng)
+    frame = _frame_from(lik.Data(data.y[0], data.failed[0], data.candidates[0]))
+    sp = fm.read_specimens(frame)
+    d = lik.Data.from_specimens(sp)
+    for name in ("exclusive", "partial"):
+        r = fm.fit(sp, model=name, intervals="none")
+        best = np.inf
+        for idx in (0, 1) if name == "partial" else (0,):
+            model = lik.Model(name, 2, idx)
+            nll = lambda t: -float(model.loglik(d, t)) if np.all(np.abs(t[4:]) < 30) else np.inf
+            for _ in range(8):
+                x0 = np.concatenate([np.log(rng.uniform(2, 30, 2)), np.log(rng.uniform(350, 500, 2)), rng.normal(0, 1, 1)])
+                res = optimize.minimize(nll, x0, method="Nelder-Mead", options={"maxiter": 6000, "xatol": 1e-9, "fatol": 1e-11})
+                best = min(best, res.fun)
+        assert r.log_likelihood >= -best - 1e-6
+
+
+def test_mixture_collapse_is_reported_in_plain_words():
+    # one labelled failure from 'b' sitting amid 'a' failures: the mixture can put population b
+    # onto that single strength with an ever larger modulus (unbounded likelihood)
+    s = np.array([300, 320, 340, 350, 360, 370, 380, 400, 410, 420.0])
+    origin = ["a"] * 4 + ["b"] + ["a"] * 5
+    with pytest.warns(fm.FlawmixWarning):
+        r = fm.fit(pd.DataFrame({"strength": s, "origin": origin}), model="exclusive", intervals="none")
+    assert r.population("b").at_bound
+    assert any("mixture likelihood is unbounded" in w and "not meaningful" in w for w in r.warnings)
