@@ -52,6 +52,7 @@ def fit_bayes(
     loo: bool = True,
     common_modulus: bool = False,
     moves=None,
+    geometries=None,
 ) -> FitResult:
     """Posterior of every population's modulus and characteristic strength (and fractions).
 
@@ -68,16 +69,23 @@ def fit_bayes(
     if model not in lik.MODELS:
         raise FlawmixError(f"unknown model '{model}'; use one of {', '.join(lik.MODELS)}")
     start_time = time.perf_counter()
-    mle = fit_mle(specimens, confidence, model=model, intervals="none", tests=False, common_modulus=common_modulus)
+    mle = fit_mle(specimens, confidence, model=model, intervals="none", tests=False, common_modulus=common_modulus,
+                  geometries=geometries)
     data, centre = _centred_data(specimens)
     k = data.k
     names = specimens.population_names
     partial_index = names.index(mle.partial_population) if mle.partial_population else 0
     spec = lik.Model(model, k, partial_index)
+    if "reference_geometry" in mle.extras:
+        from .mle import sized_setup
+
+        offsets, gidx, *_ = sized_setup(specimens, geometries)
+        spec = lik.Model(model, k, size_offsets=offsets)
+        data = lik.Data(data.y, data.failed, data.candidates, geometry=gidx)
     prior = build_priors(names, centre, priors, reference_prior)
     lower, upper = spec.bounds()
-    lower[:k] = lik.LOG_MODULUS_MIN
-    upper[:k] = np.log(500.0)   # the prior makes larger moduli negligible; keeps walkers finite
+    lower[:k] = lik.LOG_MODULUS_MIN if spec.size_offsets is None else np.log(0.5) + 1e-9
+    upper[:k] = np.log(500.0) if spec.size_offsets is None else np.log(300.0) - 1e-9   # the prior makes larger moduli negligible; keeps walkers finite
     if common_modulus:
         # sample one ln m shared by all populations: parameters [u, v_1..v_k]
         expand = lambda t: np.concatenate([np.repeat(t[..., :1], k, axis=-1), t[..., 1:]], axis=-1)
@@ -159,14 +167,15 @@ def fit_bayes(
     fractions = spec.fractions(full)
     draws = Draws("posterior", moduli, scales, fractions, chains=n_walkers)
 
-    extras = {"diagnostics": diag, "walkers": n_walkers, "steps": int(kept_steps), "burn_in": int(burn + steps // 5),
+    extras = {**{k_: v_ for k_, v_ in mle.extras.items() if k_ != "iterations"},
+              "diagnostics": diag, "walkers": n_walkers, "steps": int(kept_steps), "burn_in": int(burn + steps // 5),
               "draws": int(flat.shape[0]), "acceptance_fraction": acceptance, "seed": seed}
     if loo:
         thin = max(1, kept_steps * n_walkers // LOO_DRAWS)
         sub = chain[::thin]
         pw = spec.pointwise(data, expand(sub.reshape(-1, P))) - np.where(data.failed, centre, 0.0)
         pw = pw.reshape(sub.shape[0], n_walkers, -1).transpose(1, 0, 2)  # (chain, draw, N)
-        res = _arviz.loo(pw)
+        res = _arviz.loo(np.ascontiguousarray(pw))
         bad = int(np.sum(res["pareto_k"] > 0.7))
         extras.update({"elpd_loo": res["elpd_loo"], "elpd_loo_se": res["se"], "pareto_k_bad": bad,
                        "elpd_loo_pointwise": None if res["pointwise"] is None else res["pointwise"].tolist()})

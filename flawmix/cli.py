@@ -62,12 +62,17 @@ def _load(args):
     return study, specimens
 
 
-def _fit_from_args(args, study, specimens):
+def _fit_from_args(args, study, specimens, geometries=None):
     from .fit import fit
 
     confidence = args.confidence if args.confidence is not None else (study.confidence or 0.90)
     seed = args.seed if getattr(args, "seed", None) is not None else (study.seed if study.seed is not None else 0)
     options = {}
+    if geometries is None and specimens.geometry is not None and study.geometries:
+        if len(set(specimens.geometry)) > 1:
+            geometries = study.geometry_objects()
+    if geometries:
+        options["geometries"] = geometries
     if getattr(args, "method", "mle") == "bayes":
         options = {"priors": study.priors or None, "reference_prior": args.reference_prior, "seed": seed,
                    "progress": args.progress}
@@ -102,6 +107,84 @@ def cmd_compare(args) -> int:
         print(json.dumps(result.to_dict(), indent=2, ensure_ascii=False))
     else:
         print(result)
+    return 0
+
+
+def cmd_size(args) -> int:
+    from .scaling import effective_size, read_elements
+
+    dims = {k: getattr(args, k) for k in ("width", "depth", "outer_span", "inner_span", "diameter", "gauge_length",
+                                          "load_radius", "support_radius", "disc_radius", "thickness", "poisson")
+            if getattr(args, k) is not None}
+    if args.geometry == "elements":
+        if not args.table:
+            raise FlawmixError("geometry 'elements' needs --table FILE (columns volume or area, stress_1..stress_3)")
+        dims["table"] = read_elements(args.table, args.length_unit)
+    if args.geometry == "flexure-3pt" and "inner_span" in dims:
+        raise FlawmixError("flexure-3pt has no inner span; drop --inner-span or use flexure-4pt")
+    size = effective_size(args.geometry, args.modulus, unit=args.length_unit, rule=args.rule, **dims)
+    if args.json:
+        print(json.dumps(size.to_dict(), indent=2))
+    else:
+        u = size.unit
+        print(f"{size.geometry}, modulus {size.modulus:g}" + (f", multiaxial rule {size.rule}" if size.rule else ""))
+        if size.effective_volume is not None:
+            print(f"  effective volume  {size.effective_volume:.6g} {u}³")
+        if size.effective_area is not None:
+            print(f"  effective area    {size.effective_area:.6g} {u}²")
+        if size.effective_length is not None:
+            print(f"  effective length  {size.effective_length:.6g} {u}")
+    return 0
+
+
+def _coupon_geometry(study, specimens, result):
+    geoms = study.geometry_objects()
+    if "reference_geometry" in result.extras:
+        return geoms[result.extras["reference_geometry"]]
+    name = study.geometry
+    if name is None and specimens.geometry is not None and len(set(specimens.geometry)) == 1:
+        name = specimens.geometry[0]
+    if name is None:
+        raise FlawmixError(f"{study.path or 'study file'}: say which geometry the specimens have "
+                           "(geometry = \"NAME\" with a [geometries.NAME] table, or a 'geometry' column)")
+    if name not in geoms:
+        raise FlawmixError(f"{study.path}: geometry '{name}' is not defined; add a [geometries.{name}] table")
+    return geoms[name]
+
+
+def cmd_predict(args) -> int:
+    from .predict import predict
+
+    if not args.study:
+        raise FlawmixError("predict needs --study FILE with the specimen geometry and a [component] table")
+    study, specimens = _load(args)
+    geoms = study.geometry_objects()
+    result = _fit_from_args(args, study, specimens, geometries=geoms if specimens.geometry is not None else None)
+    comp = study.component_object()
+    if comp is None:
+        raise FlawmixError(f"{study.path}: no [component] table; describe the part (type = ..., sizes or element tables)")
+    name, component = comp
+    changes = {}
+    for item in args.what_if:
+        if "=" not in item:
+            raise FlawmixError(f"--what-if '{item}': write POPULATION=FACTOR (0 removes it, 0.5 halves its risk)")
+        pop, value = item.split("=", 1)
+        try:
+            changes[pop.strip()] = float(value)
+        except ValueError:
+            raise FlawmixError(f"--what-if '{item}': '{value}' is not a number") from None
+    kwargs = {}
+    if args.stress:
+        kwargs["stresses"] = args.stress
+    if args.probability:
+        kwargs["probabilities"] = args.probability
+    pred = predict(result, _coupon_geometry(study, specimens, result), component, changes=changes or None,
+                   component_name=name, **kwargs)
+    if args.json:
+        print(json.dumps(pred.to_dict(), indent=2, ensure_ascii=False))
+    else:
+        print(pred)
+    _print_warnings(result)
     return 0
 
 
@@ -147,6 +230,32 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--seed", type=int, help="seed (default: the study file's, else 0)")
     p.add_argument("--json", action="store_true", help="print the comparison as JSON")
     p.set_defaults(func=cmd_compare)
+
+    p = sub.add_parser("size", help="effective volume, area and edge length of a test geometry")
+    p.add_argument("geometry", choices=["flexure-3pt", "flexure-4pt", "rod-flexure-3pt", "rod-flexure-4pt",
+                                        "tension-rect", "tension-round", "ring-on-ring", "elements"])
+    p.add_argument("--modulus", type=float, required=True, help="Weibull modulus m")
+    for name in ("width", "depth", "outer-span", "inner-span", "diameter", "gauge-length", "load-radius",
+                 "support-radius", "disc-radius", "thickness"):
+        p.add_argument(f"--{name}", type=float)
+    p.add_argument("--poisson", type=float, help="Poisson's ratio (ring-on-ring, default 0.25)")
+    p.add_argument("--rule", default="pia", choices=["pia", "largest"],
+                   help="multiaxial rule: principle of independent action (default) or largest principal stress")
+    p.add_argument("--table", help="element table for 'elements' (volume or area, stress_1[, stress_2, stress_3])")
+    p.add_argument("--length-unit", default="mm", help="unit of the lengths (default mm)")
+    p.add_argument("--json", action="store_true")
+    p.set_defaults(func=cmd_size)
+
+    p = sub.add_parser("predict", help="carry a fit to a component: failure probability, limiting flaw, what-if")
+    p.add_argument("specimens", nargs="?", help="specimen table; may come from the study file")
+    _add_grouping(p)
+    _add_fit_options(p)
+    p.add_argument("--stress", type=float, action="append", help="component reference stress to report (repeat)")
+    p.add_argument("--probability", type=float, action="append", help="failure probability to report (repeat)")
+    p.add_argument("--what-if", action="append", default=[], metavar="POPULATION=FACTOR",
+                   help="scale a population's risk: 0 removes it, 0.5 halves it (repeat)")
+    p.add_argument("--json", action="store_true")
+    p.set_defaults(func=cmd_predict)
 
     p = sub.add_parser("demo", help="run the analysis on the embedded, invented demo data")
     p.set_defaults(func=cmd_demo)

@@ -24,6 +24,7 @@ def fit(
     target_ess: float = 1000.0,
     max_steps: int = 40_000,
     progress: bool = False,
+    geometries=None,
     **read_options,
 ) -> FitResult:
     """Fit every flaw population of a specimen set.
@@ -44,6 +45,8 @@ def fit(
         positions: plotting-position rule for the graphical comparison estimate:
             ``hazen`` (i − 0.5)/N, ``mean-rank`` i/(N + 1), ``median-rank`` (i − 0.3)/(N + 0.4).
         common_modulus: impose one modulus on all populations.
+        geometries: ``{name: Geometry or study-file table}`` when the table has a ``geometry``
+            column (specimens of several sizes or shapes, fitted together).
     """
     if not isinstance(specimens, Specimens):
         specimens = read_specimens(specimens, **read_options)
@@ -60,8 +63,8 @@ def fit(
 
         return fit_bayes(specimens, confidence, model=model, priors=priors, reference_prior=reference_prior,
                          seed=seed, target_ess=target_ess, max_steps=max_steps, progress=progress,
-                         common_modulus=common_modulus)
+                         common_modulus=common_modulus, geometries=geometries)
     from .mle import fit_mle
 
     return fit_mle(specimens, confidence, model=model, intervals=intervals, positions=positions,
-                   common_modulus=common_modulus)
+                   common_modulus=common_modulus, geometries=geometries)

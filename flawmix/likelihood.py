@@ -8,7 +8,7 @@ MLE, Bayes, bootstrap and simulation all call these functions.
 """
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 
@@ -27,6 +27,7 @@ class Data:
     y: np.ndarray
     failed: np.ndarray
     candidates: np.ndarray
+    geometry: np.ndarray | None = None   # (N,) index of each specimen's geometry (sized models)
 
     @classmethod
     def from_specimens(cls, specimens) -> "Data":
@@ -55,17 +56,20 @@ def _masked_logsumexp(logh: np.ndarray, mask: np.ndarray) -> tuple[np.ndarray, n
     return lse, e / np.where(s > 0, s, 1.0)
 
 
-def concurrent_pointwise(data: Data, log_modulus, log_scale) -> np.ndarray:
+def concurrent_pointwise(data: Data, log_modulus, log_scale, offset=None) -> np.ndarray:
     """Per-specimen log-likelihood of the concurrent model.
 
     log_modulus, log_scale: (..., k) parameter sets (leading dims broadcast against the
-    data's leading dims). Returns (..., N).
+    data's leading dims). offset: optional (..., N, k) added to ln of the cumulative hazard
+    (the log effective-size ratio of each specimen's geometry). Returns (..., N).
     """
     u = np.asarray(log_modulus, dtype=float)
     v = np.asarray(log_scale, dtype=float)
     m = np.exp(u)[..., None, :]
     y = data.y[..., :, None]
     z = m * (y - v[..., None, :])
+    if offset is not None:
+        z = z + offset
     with np.errstate(over="ignore"):
         H = np.exp(z)
     logh = u[..., None, :] - y + z
@@ -186,6 +190,8 @@ class Model:
     name: str
     k: int
     partial_index: int = 0
+    # sized models: moduli (..., k) -> (..., G, k) ln(k_g(m)/k_ref(m)) per geometry g
+    size_offsets: object = field(default=None, compare=False, repr=False)
 
     def __post_init__(self):
         if self.name not in MODELS:
@@ -219,7 +225,11 @@ class Model:
         k = self.k
         u, v = theta[..., :k], theta[..., k:2 * k]
         if self.name == "concurrent":
-            return concurrent_pointwise(data, u, v)
+            offset = None
+            if self.size_offsets is not None:
+                per_geometry = self.size_offsets(np.exp(u))              # (..., G, k)
+                offset = np.take(per_geometry, data.geometry, axis=-2)   # (..., N, k)
+            return concurrent_pointwise(data, u, v, offset)
         if self.name == "exclusive":
             return exclusive_pointwise(data, u, v, np.log(self.fractions(theta)))
         return partial_pointwise(data, u, v, theta[..., 2 * k], self.partial_index)

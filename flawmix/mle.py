@@ -182,6 +182,39 @@ def _fit_other_model(data: lik.Data, model_name: str, concurrent_theta: np.ndarr
     return best
 
 
+def sized_setup(specimens: Specimens, geometries):
+    """For specimens of several geometries: (size-offset function, geometry index per
+    specimen, geometry names, reference geometry name). The reference is the most common
+    geometry; the fitted characteristic strengths refer to it."""
+    from .geometry import Geometry, population_log_sizes
+
+    if specimens.geometry is None:
+        raise FlawmixError(f"{specimens.source or 'the specimen table'}: geometries were given but the table has no "
+                           "'geometry' column; add one naming each specimen's geometry")
+    names = sorted(set(specimens.geometry))
+    missing = [n for n in names if n not in geometries]
+    if missing:
+        raise FlawmixError(f"{specimens.source or 'the specimen table'}, column 'geometry': "
+                           f"{', '.join(repr(n) for n in missing)} not defined; add [geometries.NAME] to the study file")
+    counts = {n: int(np.sum(specimens.geometry == n)) for n in names}
+    reference = max(names, key=lambda n: (counts[n], n == names[0]))
+    index = np.array([names.index(g) for g in specimens.geometry])
+    kinds = [p.kind for p in specimens.populations]
+    geoms = [geometries[n] if isinstance(geometries[n], Geometry) else Geometry.from_spec(n, geometries[n])
+             for n in names]
+    ref = geoms[names.index(reference)]
+    for kind, pop in zip(kinds, specimens.populations):
+        if kind == "unspecified":
+            raise FlawmixError(f"population '{pop.name}' has kind 'unspecified': to fit specimens of several "
+                               "geometries say whether it is a volume, surface or edge flaw population")
+
+    def offsets(moduli):
+        base = population_log_sizes(ref, kinds, moduli)
+        return np.stack([population_log_sizes(g, kinds, moduli) - base for g in geoms], axis=-2)
+
+    return offsets, index, names, reference, geoms
+
+
 def fit_mle(
     specimens: Specimens,
     confidence: float = 0.90,
@@ -191,8 +224,14 @@ def fit_mle(
     positions: str = "hazen",
     common_modulus: bool = False,
     tests: bool = True,
+    geometries=None,
 ) -> FitResult:
-    """Maximum-likelihood fit of every population under the named model."""
+    """Maximum-likelihood fit of every population under the named model.
+
+    geometries: {name: Geometry or study-file table} for tables with a ``geometry`` column:
+    each specimen's hazard then scales with its own effective size, and the fit reports the
+    material scale σ0 and σθ of every geometry.
+    """
     if not 0 < confidence < 1:
         raise FlawmixError(f"confidence {confidence} must lie strictly between 0 and 1 (for example 0.90)")
     if model not in lik.MODELS:
@@ -212,6 +251,19 @@ def fit_mle(
     conc, deriv, lower, upper = _maximise(data, tie)
     spec = lik.Model("concurrent", k)
     opt = conc
+    sized = None
+    if geometries and specimens.geometry is not None:
+        if model != "concurrent" or common_modulus:
+            raise FlawmixError("specimens of several geometries can be fitted with the concurrent model only")
+        offsets, gidx, gnames, reference, geoms = sized_setup(specimens, geometries)
+        sized = (gnames, reference, geoms)
+        spec = lik.Model("concurrent", k, size_offsets=offsets)
+        data = lik.Data(data.y, data.failed, data.candidates, geometry=gidx)
+        lower, upper = spec.bounds()
+        lower[:k], upper[:k] = np.log(0.5) + 1e-9, np.log(300.0) - 1e-9   # where sizes are tabulated
+        deriv = lambda t: lik.numerical_derivatives(spec, data, t)
+        opt = newton_maximise(deriv, np.clip(conc.theta, lower, upper), lower=lower, upper=upper, score_tol=1e-6)
+        tests = False
     if model != "concurrent":
         opt, spec, deriv = _fit_other_model(data, model, conc.theta)
         lower, upper = spec.bounds()
@@ -265,7 +317,7 @@ def fit_mle(
     possible = specimens.possible_failures()
     pops = []
     for j, pop in enumerate(specimens.populations):
-        rm, rs = _regression(specimens, j, positions)
+        rm, rs = _regression(specimens, j, positions) if sized is None else (None, None)
         pops.append(PopulationEstimate(
             name=pop.name, kind=pop.kind, n_failures=int(certain[j]), n_possible=int(possible[j]),
             expected_failures=float(expected[j]), modulus=float(m_hat[j]),
@@ -313,14 +365,43 @@ def fit_mle(
         source=specimens.source,
         checksum=specimens.checksum,
         specimens=specimens,
-        extras={"iterations": opt.iterations},
+        extras={"iterations": opt.iterations, **_sized_extras(sized, specimens, m_hat, np.exp(v + centre))},
         partial_population=partial_name,
     )
+
+
+def _sized_extras(sized, specimens, moduli, scales) -> dict:
+    if sized is None:
+        return {}
+    from .geometry import population_log_sizes
+    from .units import length_unit
+
+    gnames, reference, geoms = sized
+    kinds = [p.kind for p in specimens.populations]
+    ref = geoms[gnames.index(reference)]
+    names = specimens.population_names
+    by_geometry = {}
+    for g, geom in zip(gnames, geoms):
+        ratio = population_log_sizes(ref, kinds, moduli) - population_log_sizes(geom, kinds, moduli)
+        by_geometry[g] = dict(zip(names, (scales * np.exp(ratio / moduli)).tolist()))
+    sigma0 = scales * np.exp(population_log_sizes(ref, kinds, moduli) / moduli)
+    power = {"volume": 3, "surface": 2, "edge": 1}
+    unit = length_unit(ref.unit)
+    return {"reference_geometry": reference,
+            "characteristic_strength_by_geometry": by_geometry,
+            "material_scale": dict(zip(names, sigma0.tolist())),
+            "material_scale_unit": {n: f"{specimens.unit}·{unit}^({power[k]}/m)" for n, k in zip(names, kinds)}}
 
 
 def _responsibilities(spec: lik.Model, data: lik.Data, theta: np.ndarray) -> np.ndarray:
     """(N, k) probability that population j caused failure i, under the fitted model."""
     k = spec.k
+    if spec.name == "concurrent" and spec.size_offsets is not None:
+        u, v = theta[:k], theta[k:2 * k]
+        off = np.take(spec.size_offsets(np.exp(u)), data.geometry, axis=-2)
+        logh = u - data.y[:, None] + np.exp(u) * (data.y[:, None] - v) + off
+        _, pi = lik._masked_logsumexp(logh, data.candidates)
+        return np.where(data.failed[:, None], pi, 0.0)
     if spec.name == "concurrent":
         return lik.responsibilities(data, theta[:k], theta[k:2 * k])
     from .distributions import model_failure_shares

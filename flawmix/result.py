@@ -388,6 +388,12 @@ def format_result(r: FitResult) -> str:
                      + "; ".join(f"{p.name} m={_fmt(p.regression_modulus, 3)} σθ={_fmt(p.regression_strength)}" for p in reg))
     for t in r.tests:
         lines.append(f"test {t.name}: statistic {t.statistic:.3f}, df {t.df}, p = {t.p_value:.3g} ({t.method}). {t.meaning}")
+    if "reference_geometry" in r.extras:
+        lines.append(f"σθ above refers to geometry '{r.extras['reference_geometry']}'; by geometry: "
+                     + "; ".join(f"{g}: " + ", ".join(f"{n} {_fmt(v)}" for n, v in d.items())
+                                 for g, d in r.extras["characteristic_strength_by_geometry"].items()))
+        lines.append("material scale σ0: " + ", ".join(
+            f"{n} {_fmt(v)} {r.extras['material_scale_unit'][n]}" for n, v in r.extras["material_scale"].items()))
     diag = r.extras.get("diagnostics")
     if diag:
         lines.append(f"sampler: R-hat max {diag['r_hat_max']:.4f}, bulk ESS min {diag['ess_bulk_min']:.0f}, "

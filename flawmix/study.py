@@ -25,7 +25,7 @@ from .specimens import Population, make_populations
 from .units import stress_unit
 
 KNOWN_KEYS = {"unit", "confidence", "specimens", "populations", "geometries", "component",
-              "seed", "title", "length_unit"}
+              "seed", "title", "length_unit", "geometry"}
 
 
 @dataclass(frozen=True)
@@ -43,6 +43,36 @@ class Study:
     component: dict[str, Any] | None = None
     priors: dict[str, dict[str, Any]] = field(default_factory=dict)
     path: Path | None = None
+    geometry: str | None = None          # geometry of every specimen when the table has no column
+
+    def geometry_objects(self) -> dict:
+        """The [geometries.NAME] tables as :class:`flawmix.geometry.Geometry` objects."""
+        from .geometry import Geometry
+
+        base = self.path.parent if self.path else None
+        out = {}
+        for name, spec in self.geometries.items():
+            if not isinstance(spec, dict):
+                raise FlawmixError(f"{self.path}: [geometries.{name}] must be a table with a 'type'")
+            try:
+                out[name] = Geometry.from_spec(name, spec, base, self.length_unit or "mm")
+            except FlawmixError as exc:
+                raise FlawmixError(f"{self.path}: {exc}") from None
+        return out
+
+    def component_object(self):
+        """The [component] table as a Geometry (None when the study has none)."""
+        from .geometry import Geometry
+
+        if not self.component:
+            return None
+        spec = dict(self.component)
+        name = spec.pop("name", "component")
+        try:
+            return name, Geometry.from_spec(name, spec, self.path.parent if self.path else None,
+                                            self.length_unit or "mm")
+        except FlawmixError as exc:
+            raise FlawmixError(f"{self.path}: [component]: {exc}") from None
 
 
 def read_study(path) -> Study:
@@ -91,7 +121,8 @@ def read_study(path) -> Study:
     component = raw.get("component")
     return Study(populations=pops, unit=unit, confidence=confidence, specimens=specimens,
                  title=raw.get("title"), seed=raw.get("seed"), length_unit=raw.get("length_unit"),
-                 geometries=geometries, component=component, priors=priors, path=path)
+                 geometries=geometries, component=component, priors=priors, path=path,
+                 geometry=raw.get("geometry"))
 
 
 def parse_group_option(text: str) -> tuple[str, dict[str, Any]]:
