@@ -6,6 +6,7 @@ from __future__ import annotations
 
 import argparse
 import json
+import os
 import sys
 import warnings
 from pathlib import Path
@@ -195,7 +196,21 @@ def demo_paths() -> tuple[Path, Path]:
     return Path(str(base / "seal_rings.csv")), Path(str(base / "seal_rings.toml"))
 
 
+def cmd_report(args) -> int:
+    from .report import write_report
+
+    study, specimens = _load(args)
+    seed = args.seed if args.seed is not None else (study.seed if study.seed is not None else 0)
+    out = write_report(specimens, args.out, study=study, force=args.force, method=args.method,
+                       compare_models=not args.no_compare, bayes=not args.no_bayes, bootstrap=args.bootstrap,
+                       seed=seed, confidence=args.confidence)
+    print(f"report written to {out}/report.html (with results.json, figures/, tables/)")
+    return 0
+
+
 def cmd_demo(args) -> int:
+    from .report import write_report
+
     csv, toml = demo_paths()
     ns = argparse.Namespace(study=str(toml), group=[], unit=None, specimens=str(csv), confidence=None,
                             intervals="auto", positions="hazen", common_modulus=False)
@@ -204,6 +219,8 @@ def cmd_demo(args) -> int:
     print(f"Demo data (invented): {study.title}\n")
     print(result)
     _print_warnings(result)
+    out = write_report(specimens, args.out, study=study, force=args.force, seed=study.seed or 0)
+    print(f"\nFull report (model comparison, which flaw limits the seal ring, what-if): {out}/report.html")
     return 0
 
 
@@ -257,7 +274,22 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--json", action="store_true")
     p.set_defaults(func=cmd_predict)
 
-    p = sub.add_parser("demo", help="run the analysis on the embedded, invented demo data")
+    p = sub.add_parser("report", help="run the whole analysis and write an HTML report folder")
+    p.add_argument("specimens", nargs="?", help="specimen table; may come from the study file")
+    _add_grouping(p)
+    p.add_argument("--out", required=True, help="report folder to create (refuses to replace one without --force)")
+    p.add_argument("--force", action="store_true", help="replace an existing report folder")
+    p.add_argument("--method", default="mle", choices=["mle", "bayes"], help="estimates shown (default mle)")
+    p.add_argument("--confidence", type=float, help="two-sided interval level (default 0.90)")
+    p.add_argument("--no-compare", action="store_true", help="skip the model comparison")
+    p.add_argument("--no-bayes", action="store_true", help="model comparison without Bayesian fits (no PSIS-LOO)")
+    p.add_argument("--bootstrap", type=int, default=199, metavar="N", help="bootstrap replicates of the boundary test")
+    p.add_argument("--seed", type=int, help="seed (default: the study file's, else 0)")
+    p.set_defaults(func=cmd_report)
+
+    p = sub.add_parser("demo", help="analyse the embedded, invented demo data and write its report")
+    p.add_argument("--out", default="flawmix-demo-report", help="report folder (default flawmix-demo-report)")
+    p.add_argument("--force", action="store_true", help="replace an existing report folder")
     p.set_defaults(func=cmd_demo)
     return parser
 
@@ -279,6 +311,12 @@ def main(argv=None) -> int:
     except KeyboardInterrupt:
         print("error: interrupted", file=sys.stderr)
         return 130
+    except Exception as exc:  # a bug, not a user error: one line, details on request
+        if os.environ.get("FLAWMIX_DEBUG"):
+            raise
+        print(f"error: internal error ({type(exc).__name__}: {exc}); rerun with FLAWMIX_DEBUG=1 for details "
+              "and report it", file=sys.stderr)
+        return 1
 
 
 if __name__ == "__main__":

@@ -227,7 +227,8 @@ def _verdict(table, order, bayes, bayes_fits, specimens) -> str:
                 np.asarray(bayes_fits["single"].extras["elpd_loo_pointwise"])
             d, se = float(diff.sum()), float(math.sqrt(diff.size * np.var(diff)))
             text += (f" One pooled population is worse than '{best}' by {d:.1f} ± {se:.1f} "
-                     f"({_strength_words(d / se if se > 0 else float('inf'))} that the flaw populations differ).")
+                     f"({_strength_words(d / se if se > 0 else float('inf'))} that the flaw populations differ "
+                     "by predictive accuracy; see the likelihood-ratio test of a common modulus for a test).")
         else:
             d = float(table.loc["single", "aic"] - table.loc[best, "aic"])
             text += f" One pooled population is worse than '{best}' by {d:.1f} in AIC."

@@ -365,9 +365,25 @@ def fit_mle(
         source=specimens.source,
         checksum=specimens.checksum,
         specimens=specimens,
-        extras={"iterations": opt.iterations, **_sized_extras(sized, specimens, m_hat, np.exp(v + centre))},
+        extras={"iterations": opt.iterations, **_sized_extras(sized, specimens, m_hat, np.exp(v + centre)),
+                **_covariance(opt, tie, centre, spec)},
         partial_population=partial_name,
     )
+
+
+def _covariance(opt, tie, centre, spec) -> dict:
+    """Inverse observed information in (ln m, ln σθ, extra) for normal-approximation bands
+    (kept as arrays, so they stay out of the JSON export)."""
+    try:
+        J = np.eye(opt.theta.size) if tie is None else tie
+        cov = J @ np.linalg.inv(-opt.hessian) @ J.T
+    except np.linalg.LinAlgError:
+        return {}
+    if not np.all(np.isfinite(cov)) or np.any(np.diag(cov) < 0):
+        return {}
+    theta = opt.theta.copy()
+    theta[spec.k:2 * spec.k] += centre
+    return {"theta_hat": theta, "covariance": cov, "model_spec": spec}
 
 
 def _sized_extras(sized, specimens, moduli, scales) -> dict:
@@ -442,3 +458,29 @@ def _degeneracy_notes(spec: lik.Model, specimens: Specimens, theta: np.ndarray, 
 def fit_concurrent_mle(specimens: Specimens, confidence: float = 0.90, **options) -> FitResult:
     """Competing-risk censored MLE of concurrent populations (kept for callers of the first API)."""
     return fit_mle(specimens, confidence, model="concurrent", **options)
+
+
+def likelihood_surface(result: FitResult, population: str, n: int = 80, span: float = 5.0):
+    """Relative log-likelihood over (modulus, characteristic strength) of one population,
+    the other parameters held at their estimates (for concurrent fits with every origin
+    identified this is the profile). Returns (moduli (n,), strengths (n,), values (n, n))."""
+    spec = result.extras.get("model_spec")
+    theta = result.extras.get("theta_hat")
+    cov = result.extras.get("covariance")
+    if spec is None or theta is None or cov is None:
+        raise FlawmixError("a likelihood surface needs a maximum-likelihood fit with finite standard errors")
+    names = [p.name for p in result.populations]
+    if population not in names:
+        raise FlawmixError(f"no population '{population}'; the fit has {', '.join(names)}")
+    j = names.index(population)
+    k = spec.k
+    sd_u, sd_v = np.sqrt(cov[j, j]), np.sqrt(cov[k + j, k + j])
+    u = theta[j] + np.linspace(-span, span, n) * sd_u
+    v = theta[k + j] + np.linspace(-span, span, n) * sd_v
+    data = lik.Data(np.log(result.specimens.strength), result.specimens.failed, result.specimens.candidates)
+    grid = np.repeat(theta[None, None, :], n, axis=0).repeat(n, axis=1)
+    grid[:, :, j] = u[:, None]
+    grid[:, :, k + j] = v[None, :]
+    values = spec.loglik(data, grid.reshape(-1, theta.size)).reshape(n, n)
+    top = float(spec.loglik(data, theta[None])[0])
+    return np.exp(u), np.exp(v), values - top

@@ -270,3 +270,39 @@ def what_if(result: FitResult, coupon: Geometry | None, component: Geometry | No
                 row["gain low (%)"], row["gain high (%)"] = lo, hi
             rows.append(row)
     return pd.DataFrame(rows).set_index(["body", "failure probability"])
+
+
+def failure_share_curves(result: FitResult, stresses, coupon: Geometry | None = None,
+                         component: Geometry | None = None) -> pd.DataFrame:
+    """Share of failures from each population across stress (h_j / Σh), for the test
+    specimen and, when given, the component. Columns: body, stress, one per population."""
+    s = np.atleast_1d(np.asarray(stresses, dtype=float))
+    names = [p.name for p in result.populations]
+    frames = [pd.DataFrame(result.failure_shares(s).to_numpy(), columns=names).assign(body="specimen", stress=s)]
+    if component is not None:
+        _check_concurrent(result)
+        comp_s = scaled_strengths(result, coupon, component)
+        shares = dist.model_failure_shares("concurrent", s, result.moduli, comp_s)
+        frames.append(pd.DataFrame(shares, columns=names).assign(body="component", stress=s))
+    return pd.concat(frames, ignore_index=True)[["body", "stress", *names]]
+
+
+def size_effect(result: FitResult, coupon: Geometry, component: Geometry | None = None,
+                ratios=None) -> pd.DataFrame:
+    """Characteristic strength of each population against effective size relative to the
+    test specimen (σθ ∝ ratio^(−1/m)); the component's own ratio per population is in the
+    ``component_ratio`` column. Rows: population × ratio."""
+    _check_concurrent(result)
+    r = np.geomspace(0.1, 1e4, 60) if ratios is None else np.asarray(ratios, dtype=float)
+    rows = []
+    comp_ratio = {}
+    if component is not None:
+        kinds = _kinds(result)
+        lr = population_log_sizes(component, kinds, result.moduli) - population_log_sizes(coupon, kinds, result.moduli)
+        comp_ratio = dict(zip([p.name for p in result.populations], np.exp(lr)))
+    for p in result.populations:
+        for x in r:
+            rows.append({"population": p.name, "kind": p.kind, "ratio": x,
+                         "characteristic_strength": p.characteristic_strength * x ** (-1 / p.modulus),
+                         "component_ratio": comp_ratio.get(p.name, np.nan)})
+    return pd.DataFrame(rows)

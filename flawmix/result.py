@@ -212,18 +212,66 @@ class FitResult:
         return pd.DataFrame(shares, index=pd.Index(s, name=f"stress ({self.unit})"),
                             columns=[p.name for p in self.populations])
 
+    # ---- what plots and reports show ------------------------------------------------------
+    def plotting_positions(self, view: str = "populations") -> pd.DataFrame:
+        """Failure probability plotting positions of every specimen.
+
+        view ``populations``: each population's certain failures ranked by Johnson's adjusted
+        ranks among all specimens (other failures and survivors suspended), so censored
+        populations sit where they belong; ``all``: every failure ranked among all specimens.
+        Unidentified/ambiguous failures get their all-specimen position in both views;
+        survivors get none (NaN). Columns: specimen, strength, group, probability.
+        """
+        from .positions import adjusted_ranks, plotting_positions
+
+        sp = self.specimens
+        if sp is None:
+            raise FlawmixError("this result carries no specimens to plot")
+        n = sp.n_specimens
+        names = list(sp.population_names)
+        certain = sp.failed & (sp.n_candidates == 1)
+        group = np.where(~sp.failed, "survived", "unidentified or ambiguous").astype(object)
+        for j, name in enumerate(names):
+            group[certain & sp.candidates[:, j]] = name
+        prob = np.full(n, np.nan)
+        idx, ranks = adjusted_ranks(sp.strength, sp.failed)
+        prob[idx] = plotting_positions(ranks, n, self.plotting_rule)
+        if view == "populations":
+            for j in range(len(names)):
+                mine = certain & sp.candidates[:, j]
+                if mine.any():
+                    idx, ranks = adjusted_ranks(sp.strength, mine)
+                    prob[idx] = plotting_positions(ranks, n, self.plotting_rule)
+        elif view != "all":
+            raise FlawmixError(f"unknown view '{view}'; use 'populations' or 'all'")
+        return pd.DataFrame({"specimen": sp.ids, "strength": sp.strength, "group": group, "probability": prob})
+
+    def parameter_draws(self, size: int = 2000, seed: int = 0) -> "Draws | None":
+        """The fit's draws (posterior or bootstrap) or, for a plain MLE, draws from the normal
+        approximation of the estimates (for bands on plots); None when neither exists."""
+        if self.draws is not None:
+            return self.draws
+        theta, cov, spec = (self.extras.get(k) for k in ("theta_hat", "covariance", "model_spec"))
+        if theta is None:
+            return None
+        rng = np.random.default_rng(seed)
+        t = rng.multivariate_normal(theta, cov, size=size, method="eigh")
+        k = spec.k
+        return Draws("normal approximation", np.exp(t[:, :k]), np.exp(t[:, k:2 * k]), spec.fractions(t))
+
     # ---- derived quantities with intervals (from posterior or bootstrap draws) ------------
     def _point_params(self):
         return self.moduli[None, :], self.characteristic_strengths[None, :], self.fractions[None, :]
 
-    def failure_probability(self, stress) -> pd.DataFrame:
+    def failure_probability(self, stress, approximate: bool = False) -> pd.DataFrame:
         """Failure probability of a test specimen at each stress: estimate and, when the fit
-        carries draws (Bayes, bootstrap), the interval at the result's confidence."""
+        carries draws (Bayes, bootstrap), the interval at the result's confidence;
+        ``approximate=True`` lets a plain MLE use its normal-approximation draws."""
         s = np.atleast_1d(np.asarray(stress, dtype=float))
         point = 1.0 - dist.model_sf_rows(self.model, s, *self._point_params(), self._partial_index)[0]
         samples = None
-        if self.draws is not None:
-            d = self.draws
+        d = self.parameter_draws() if approximate else self.draws
+        if d is not None:
             samples = 1.0 - dist.model_sf_rows(self.model, s, d.moduli, d.scales, d.fractions, self._partial_index)
             if self.method == "bayes":
                 point = np.median(samples, axis=0)

@@ -1,0 +1,264 @@
+"""Figures: probability plot, failure shares, size effect, posterior pairs, likelihood contours.
+
+Presentation only: every number drawn comes from the result object or the predict API.
+Every function takes ``ax=None`` and returns the matplotlib Axes (or Figure for pair plots).
+Markers and colours are flawmix's own: they differ in shape, fill and lightness, so they
+stay apart in greyscale and for colour-blind readers.
+"""
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from .errors import FlawmixError
+
+# (colour, marker, filled): distinct in hue, lightness and shape
+STYLES = [("#1d3f72", "o", True), ("#c2571a", "s", False), ("#3f8f6b", "D", True), ("#8a3b8f", "^", False),
+          ("#7a6a10", "v", True), ("#3a7ca5", "P", False)]
+UNIDENTIFIED = ("#6b6b6b", "X")
+SURVIVOR = ("#111111", ">")
+PERCENT_TICKS = [0.1, 0.5, 1, 2, 5, 10, 20, 30, 50, 63.2, 80, 90, 95, 99, 99.9]
+
+
+def _plt():
+    import matplotlib
+
+    if matplotlib.get_backend().lower() not in ("agg", "module://matplotlib_inline.backend_inline"):
+        try:
+            matplotlib.use("Agg", force=False)
+        except Exception:
+            pass
+    import matplotlib.pyplot as plt
+
+    return plt
+
+
+def _ax(ax, size=(7.0, 5.0)):
+    if ax is not None:
+        return ax
+    fig, ax = _plt().subplots(figsize=size, constrained_layout=True)
+    return ax
+
+
+def _weibit(p):
+    p = np.asarray(p, dtype=float)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return np.log(-np.log1p(-p))
+
+
+def _stress_axis(ax, unit):
+    from matplotlib.ticker import FuncFormatter, LogLocator, NullFormatter
+
+    ax.set_xscale("log")
+    lo, hi = ax.get_xlim()
+    dense = hi / lo < 20   # narrow ranges get a tick at every integer multiple
+    ax.xaxis.set_major_locator(LogLocator(base=10, subs=tuple(range(1, 10)) if dense else (1.0, 2.0, 3.0, 5.0, 7.0)))
+    ax.xaxis.set_major_formatter(FuncFormatter(lambda x, _: f"{x:g}"))
+    ax.xaxis.set_minor_formatter(NullFormatter())
+    ax.set_xlabel(f"strength ({unit}), logarithmic")
+
+
+def _style(j):
+    return STYLES[j % len(STYLES)]
+
+
+def probability_plot(result, ax=None, view: str = "populations", band: bool = True, crossover: bool = True,
+                     title: str | None = None):
+    # (the legend sits below the axes, so the default figure is taller than wide-screen)
+    """Weibull probability plot: every specimen marked by origin population, each
+    population's fitted line, the model's combined curve with its band, the crossover.
+
+    view: ``populations`` (each population at its own adjusted ranks) or ``all``
+    (all failures ranked together)."""
+    ax = _ax(ax, (7.5, 6.2))
+    pos = result.plotting_positions(view)
+    names = [p.name for p in result.populations]
+    s = pos["strength"].to_numpy()
+    lo, hi = s.min() / 1.25, s.max() * 1.12
+    grid = np.geomspace(lo, hi, 300)
+
+    # points
+    for j, name in enumerate(names):
+        mine = pos[pos["group"] == name]
+        colour, marker, filled = _style(j)
+        ax.scatter(mine["strength"], _weibit(mine["probability"]), marker=marker, s=38, zorder=4,
+                   facecolors=colour if filled else "white", edgecolors=colour, linewidths=1.4,
+                   label=f"{name} ({result.populations[j].kind}), {len(mine)} failures")
+    unk = pos[pos["group"] == "unidentified or ambiguous"]
+    if len(unk):
+        ax.scatter(unk["strength"], _weibit(unk["probability"]), marker=UNIDENTIFIED[1], s=42, zorder=4,
+                   color=UNIDENTIFIED[0], linewidths=0.6, label=f"origin unidentified or ambiguous, {len(unk)}")
+
+    # fitted lines
+    for j, p in enumerate(result.populations):
+        colour = _style(j)[0]
+        ax.plot(grid, _weibit(p.cdf(grid)), color=colour, lw=1.3, ls=(0, (5, 3)), zorder=3)
+    combined = result.cdf(grid)
+    ax.plot(grid, _weibit(combined), color="black", lw=2.0, zorder=3, label=f"{result.model} model, all populations")
+    if band:
+        fp = result.failure_probability(grid, approximate=True)
+        if "low" in fp:
+            kind = (result.draws.kind if result.draws is not None else "normal approximation")
+            what = "credible" if result.method == "bayes" else "confidence"
+            ax.fill_between(grid, _weibit(fp["low"].clip(1e-12, 1 - 1e-12)), _weibit(fp["high"].clip(1e-12, 1 - 1e-12)),
+                            color="black", alpha=0.12, lw=0, zorder=1,
+                            label=f"{result.confidence:.0%} {what} band ({kind})")
+    ymin = float(np.nanmin(_weibit(pos["probability"].dropna()))) - 0.8
+    ymax = float(np.nanmax(_weibit(pos["probability"].dropna()))) + 0.6
+    ymax = max(ymax, 1.2)
+
+    if crossover and result.model.startswith("concurrent") and len(names) > 1:
+        from .predict import crossovers
+
+        for c in crossovers(result.moduli, result.characteristic_strengths, names):
+            if lo < c["stress"] < hi:
+                ax.axvline(c["stress"], color="#444444", ls=":", lw=1.2, zorder=2)
+                ax.annotate(f"crossover {c['stress']:.4g} {result.unit}:\n{c['below']} below, {c['above']} above",
+                            (c["stress"], ymax - 0.15), xytext=(-4, 0), textcoords="offset points", fontsize=8,
+                            color="#333333", va="top", ha="right",
+                            bbox=dict(boxstyle="round,pad=0.2", fc="white", ec="none", alpha=0.85))
+
+    surv = pos[pos["group"] == "survived"]
+    if len(surv):
+        ax.scatter(surv["strength"], np.full(len(surv), ymin + 0.12), marker=SURVIVOR[1], s=40, zorder=4,
+                   facecolors="white", edgecolors=SURVIVOR[0], linewidths=1.2,
+                   label=f"survived (at the stress withstood), {len(surv)}")
+
+    ax.set_xlim(lo, hi)
+    _stress_axis(ax, result.unit)
+    ax.set_ylim(ymin, ymax)
+    ax.set_ylabel("ln ln 1/(1 − P)")
+    right = ax.twinx()
+    right.set_ylim(ymin, ymax)
+    ticks = [t for t in PERCENT_TICKS if ymin <= _weibit(t / 100) <= ymax]
+    right.set_yticks([_weibit(t / 100) for t in ticks])
+    right.set_yticklabels([f"{t:g}" for t in ticks])
+    right.set_ylabel("failure probability (%)")
+    ax.grid(True, which="major", color="#dddddd", lw=0.6)
+    ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.13), ncol=2, fontsize=8, frameon=False)
+    rule = {"hazen": "(i − 0.5)/N", "mean-rank": "i/(N + 1)", "median-rank": "(i − 0.3)/(N + 0.4)"}[result.plotting_rule]
+    ax.set_title(title or f"Probability plot: {'adjusted ranks per population' if view == 'populations' else 'all specimens ranked together'}, {rule}",
+                 fontsize=10)
+    return ax
+
+
+def failure_share_plot(result, ax=None, coupon=None, component=None, component_name="component", stresses=None):
+    """Share of failures caused by each population across stress: specimen solid, component dashed."""
+    from .predict import failure_share_curves
+
+    ax = _ax(ax, (7.0, 4.0))
+    if stresses is None:
+        s = result.specimens.strength
+        stresses = np.geomspace(s.min() / 3, s.max() * 1.2, 200)
+    table = failure_share_curves(result, stresses, coupon, component)
+    for j, p in enumerate(result.populations):
+        colour = _style(j)[0]
+        spec = table[table["body"] == "specimen"]
+        ax.plot(spec["stress"], spec[p.name], color=colour, lw=2, label=f"{p.name}, test specimen")
+        if component is not None:
+            comp = table[table["body"] == "component"]
+            ax.plot(comp["stress"], comp[p.name], color=colour, lw=2, ls=(0, (4, 2)),
+                    label=f"{p.name}, {component_name}")
+    ax.set_xlim(float(np.min(stresses)), float(np.max(stresses)))
+    _stress_axis(ax, result.unit)
+    ax.set_ylim(-0.02, 1.02)
+    ax.set_ylabel("share of failures at this stress")
+    ax.grid(True, color="#dddddd", lw=0.6)
+    ax.legend(fontsize=8)
+    ax.set_title("Which flaw population causes failures, by stress", fontsize=10)
+    return ax
+
+
+def size_effect_plot(result, coupon, component=None, ax=None, component_name="component"):
+    """Characteristic strength of each population against effective size (relative to the
+    test specimen), with the test specimen and the component marked."""
+    from .predict import size_effect
+
+    ax = _ax(ax, (7.0, 4.5))
+    table = size_effect(result, coupon, component)
+    for j, p in enumerate(result.populations):
+        colour, marker, filled = _style(j)
+        rows = table[table["population"] == p.name]
+        measure = {"volume": "volume", "surface": "area", "edge": "edge length"}.get(p.kind, p.kind)
+        ax.plot(rows["ratio"], rows["characteristic_strength"], color=colour, lw=2,
+                label=f"{p.name}: scales with effective {measure}, m = {p.modulus:.3g}")
+        ax.scatter([1.0], [p.characteristic_strength], marker="o", s=50, color=colour, zorder=4)
+        if j == 0:
+            ax.annotate("test specimen", (1.0, p.characteristic_strength), xytext=(6, 6),
+                        textcoords="offset points", fontsize=8)
+        cr = rows["component_ratio"].iloc[0]
+        if np.isfinite(cr):
+            y = p.characteristic_strength * cr ** (-1 / p.modulus)
+            ax.scatter([cr], [y], marker="*", s=140, color=colour, edgecolors="black", zorder=5)
+            ax.annotate(f"{component_name}", (cr, y), xytext=(5, 4), textcoords="offset points", fontsize=8)
+    ax.axvline(1.0, color="#888888", lw=0.8, ls=":")
+    ax.set_xscale("log")
+    ax.set_yscale("log")
+    from matplotlib.ticker import FuncFormatter, NullFormatter
+    ax.yaxis.set_major_formatter(FuncFormatter(lambda x, _: f"{x:g}"))
+    ax.yaxis.set_minor_formatter(FuncFormatter(lambda x, _: f"{x:g}"))
+    ax.set_xlabel("effective size relative to the test specimen (each population its own measure)")
+    ax.set_ylabel(f"characteristic strength ({result.unit})")
+    ax.grid(True, which="both", color="#e4e4e4", lw=0.5)
+    ax.legend(fontsize=8)
+    ax.set_title("Size effect: each flaw population weakens at its own rate", fontsize=10)
+    return ax
+
+
+def pair_plot(result, max_points: int = 3000, seed: int = 0):
+    """Posterior pairs of every population's modulus and characteristic strength (Bayes fits)."""
+    if result.draws is None or result.method != "bayes":
+        raise FlawmixError("a pair plot needs a Bayesian fit (method='bayes')")
+    d = result.draws
+    rng = np.random.default_rng(seed)
+    pick = rng.choice(d.size, size=min(max_points, d.size), replace=False)
+    cols, labels = [], []
+    for j, p in enumerate(result.populations):
+        cols += [d.moduli[pick, j], d.scales[pick, j]]
+        labels += [f"m {p.name}", f"σθ {p.name} ({result.unit})"]
+    n = len(cols)
+    plt = _plt()
+    fig, axes = plt.subplots(n, n, figsize=(1.9 * n + 1, 1.9 * n + 1), constrained_layout=True)
+    for i in range(n):
+        for k in range(n):
+            ax = axes[i, k]
+            if k > i:
+                ax.axis("off")
+                continue
+            if i == k:
+                ax.hist(cols[i], bins=40, color=_style(i // 2)[0], alpha=0.8)
+                ax.set_yticks([])
+            else:
+                ax.scatter(cols[k], cols[i], s=2, alpha=0.25, color=_style(k // 2)[0], rasterized=True)
+            if i == n - 1:
+                ax.set_xlabel(labels[k], fontsize=8)
+            else:
+                ax.set_xticklabels([])
+            if k == 0 and i > 0:
+                ax.set_ylabel(labels[i], fontsize=8)
+            ax.tick_params(labelsize=7)
+    fig.suptitle("Posterior draws", fontsize=10)
+    return fig
+
+
+def likelihood_contour_plot(result, population: str, ax=None, levels=(0.5, 0.8, 0.9, 0.95)):
+    """Contours of the relative log-likelihood of one population's (m, σθ), other parameters at
+    their estimates; a contour at confidence c is where it drops by χ²₂(c)/2."""
+    from scipy import stats
+
+    from .mle import likelihood_surface
+
+    ax = _ax(ax, (6.0, 4.8))
+    m, s, values = likelihood_surface(result, population)
+    cuts = sorted(-stats.chi2.ppf(levels, 2) / 2)
+    cs = ax.contour(s, m, values, levels=cuts, colors="#1d3f72", linewidths=1.2, linestyles="solid")
+    ax.clabel(cs, fmt={c: f"{lv:.0%}" for c, lv in zip(cuts, sorted(levels, reverse=True))}, fontsize=8)
+    p = result.population(population)
+    ax.plot([p.characteristic_strength], [p.modulus], marker="+", color="#c2571a", ms=12, mew=2, label="estimate")
+    ax.set_xlabel(f"characteristic strength σθ ({result.unit})")
+    ax.set_ylabel("Weibull modulus m")
+    ax.set_title(f"Likelihood contours, population '{population}' (others at their estimates)", fontsize=10)
+    ax.legend(fontsize=8)
+    ax.grid(True, color="#e4e4e4", lw=0.5)
+    return ax
