@@ -100,9 +100,16 @@ def test_derived_quantities_have_credible_intervals():
     assert shares["estimate"].sum() == pytest.approx(1.0, abs=0.02)
 
 
-def test_cli_bayes_json():
-    proc = subprocess.run([sys.executable, "-m", "flawmix", "demo"], capture_output=True, text=True)
-    assert proc.returncode == 0
+def test_cli_bayes_json(tmp_path):
+    rng = np.random.default_rng(49)
+    path = tmp_path / "bars.csv"
+    simulate_campaign(rng, n=30, unknown=0.2).to_csv(path, index=False)
+    proc = subprocess.run([sys.executable, "-m", "flawmix", "fit", str(path), "--method", "bayes", "--seed", "3",
+                           "--json"], capture_output=True, text=True)
+    assert proc.returncode == 0, proc.stderr
+    d = json.loads(proc.stdout)
+    assert d["method"] == "bayes" and set(d["diagnostics"]) == {"r_hat_max", "ess_bulk_min", "ess_tail_min"}
+    assert all(p["interval_method"].startswith("credible") for p in d["populations"])
 
 
 @pytest.mark.slow

@@ -58,7 +58,13 @@ def test_group_option_and_warnings(tmp_path, capsys):
     assert "warning: population 'chips' has one failure, at the highest stress" in err
 
 
-def test_demo_runs():
-    proc = run("demo")
+def test_demo_writes_its_report_and_refuses_to_overwrite(tmp_path):
+    out = tmp_path / "demo"
+    proc = run("demo", "--out", str(out))
     assert proc.returncode == 0, proc.stderr
     assert "pores" in proc.stdout and "grinding" in proc.stdout
+    for name in ("report.html", "results.json", "figures/probability_plot.png", "figures/probability_plot.svg",
+                 "tables/estimates.csv"):
+        assert (out / name).exists()
+    again = run("demo", "--out", str(out))
+    assert again.returncode == 2 and "--force" in again.stderr
