@@ -117,15 +117,17 @@ def test_reference_prior_credible_intervals_have_exact_coverage():
     # DOMAIN.md section 3 [mem]: with the right-Haar prior 1/(σθ m) on complete data, 90 %
     # equal-tailed credible intervals cover the truth in 90 % of repeated samples, with an
     # average width close to that of the pivotal bounds.
+    # (300 replicates with this seed gave 84 % for σθ; an exact grid posterior gave 85 % on the
+    # same data sets and 90 % over 2 x 1000 others: the first 300 are an unlucky draw, so the
+    # study uses 600 replicates)
     rng = np.random.default_rng(47)
-    n, reps, m_true, s_true = 10, 300, 8.0, 400.0
+    n, reps, m_true, s_true = 10, 600, 8.0, 400.0
     cover_m = cover_s = 0
     width_ratio = []
     piv = complete_sample_pivots(n)
     for i in range(reps):
         s = s_true * rng.weibull(m_true, n)
-        r = fit_bayes(fm.read_specimens(pd.DataFrame({"strength": s})), reference_prior=True, loo=False,
-                      seed=i, target_ess=600)
+        r = fit_bayes(fm.read_specimens(pd.DataFrame({"strength": s})), reference_prior=True, loo=False, seed=i)
         p = r.populations[0]
         cover_m += p.modulus_interval[0] < m_true < p.modulus_interval[1]
         cover_s += p.strength_interval[0] < s_true < p.strength_interval[1]
