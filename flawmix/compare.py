@@ -44,6 +44,8 @@ class Comparison:
                     entry[c] = row[c] or None
                 elif c in ("n_parameters", "pareto_k_bad"):
                     entry[c] = int(row[c])
+                elif c == "degenerate":
+                    entry[c] = bool(row[c])
                 else:
                     entry[c] = _num(row[c])
             models.append(entry)
@@ -161,9 +163,13 @@ def compare(
             note = "same likelihood as 'single': with one modulus the origin shares do not change with stress"
         elif name == "partial" and f.partial_population:
             note = f"a fraction of the specimens carries '{f.partial_population}', all carry the rest"
-        degenerate = [w for w in f.warnings if "bound" in w or "limit" in w]
+        degenerate = [w for w in f.warnings if "not meaningful" in w]
+        row["degenerate"] = bool(degenerate)
+        boundary = [w for w in f.warnings if "limit (≈" in w]
         if degenerate:
-            note = (note + "; " if note else "") + degenerate[0]
+            note = (note + "; " if note else "") + "DEGENERATE maximum likelihood: " + degenerate[0]
+        elif boundary:
+            note = (note + "; " if note else "") + boundary[0]
         row["note"] = note
         rows[name] = row
     table = pd.DataFrame.from_dict(rows, orient="index")
@@ -172,6 +178,10 @@ def compare(
     criterion = "elpd_loo" if bayes else "aic"
     order = table["elpd_loo"].sort_values(ascending=False).index if bayes else table["aic"].sort_values().index
     order = [n for n in order if n != "concurrent-common-modulus"]
+    excluded = []
+    if not bayes:   # a degenerate maximum has a meaningless AIC: never prefer it on that basis
+        excluded = [n for n in order if table.loc[n, "degenerate"]]
+        order = [n for n in order if not table.loc[n, "degenerate"]]
     preferred = order[0]
     tests: list[HypothesisTest] = []
     if k > 1:
@@ -194,6 +204,9 @@ def compare(
                                         "Null: every specimen carries every population."))
 
     verdict = _verdict(table, order, bayes, bayes_fits, specimens)
+    if excluded:
+        verdict += (f" Not ranked: {', '.join(repr(n) for n in excluded)} (degenerate maximum likelihood; "
+                    "run the comparison with Bayesian fits to score them by PSIS-LOO).")
     return Comparison(table, preferred, verdict, tuple(tests), {**fits, **{f"{n} (bayes)": b for n, b in bayes_fits.items()}},
                       criterion)
 

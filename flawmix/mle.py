@@ -343,6 +343,8 @@ def fit_mle(
     if not opt.converged:
         notes.append("the maximisation stopped before the score reached its tolerance")
     notes.extend(_degeneracy_notes(spec, specimens, theta, at_bound))
+    if model != "concurrent":
+        notes.extend(_collapse_notes(model, specimens, np.exp(conc.theta[:k]), m_hat, at_bound))
     partial_name = specimens.populations[spec.partial_index].name if spec.name == "partial" else None
     return FitResult(
         method="mle",
@@ -429,15 +431,35 @@ def _responsibilities(spec: lik.Model, data: lik.Data, theta: np.ndarray) -> np.
     return np.where(total > 0, shares / np.where(total > 0, total, 1.0), 0.0)
 
 
+COLLAPSE_RATIO = 3.0     # modulus this many times its concurrent value ...
+COLLAPSE_MODULUS = 50.0  # ... and above this: a mixture collapsing onto a few specimens
+
+
+def _collapse_notes(model: str, specimens: Specimens, concurrent_moduli, moduli, at_bound) -> list[str]:
+    """A mixture-type likelihood (exclusive, partial) grows without bound as one population
+    shrinks onto a few nearly equal strengths with an ever larger modulus. Flag it."""
+    notes = []
+    for j, name in enumerate(specimens.population_names):
+        if at_bound[j]:
+            continue   # already reported as at the bound
+        if moduli[j] > COLLAPSE_MODULUS and moduli[j] > COLLAPSE_RATIO * concurrent_moduli[j]:
+            notes.append(f"population '{name}': under the {model} model its modulus jumps to {moduli[j]:.0f} "
+                         f"(concurrent fit: {concurrent_moduli[j]:.1f}). The {model} likelihood is concentrating "
+                         "this population on a few nearly equal strengths, a known degeneracy of mixture "
+                         "likelihoods: this fit and its AIC/BIC are not meaningful. Compare models by PSIS-LOO "
+                         "(Bayesian fits with proper priors)")
+    return notes
+
+
 def _degeneracy_notes(spec: lik.Model, specimens: Specimens, theta: np.ndarray, at_bound) -> list[str]:
     names = specimens.population_names
     notes = []
     for j in np.flatnonzero(at_bound):
-        if spec.name == "exclusive":
+        if spec.name in ("exclusive", "partial"):
             notes.append(f"population '{names[j]}': modulus reached the search bound {np.exp(lik.LOG_MODULUS_MAX):.0f}. "
                          "A mixture likelihood is unbounded when one population collapses onto a few equal-looking "
-                         "strengths; this estimate is not meaningful. Use method='bayes' (proper priors) or the "
-                         "concurrent model")
+                         "strengths; this estimate is not meaningful (a known degeneracy of mixture likelihoods). "
+                         "Use method='bayes' (proper priors) or the concurrent model")
         else:
             notes.append(f"population '{names[j]}': modulus reached the search bound "
                          f"{np.exp(lik.LOG_MODULUS_MAX):.0f}; the data do not bound it")

@@ -259,7 +259,7 @@ def write_report(
         # 4. model comparison
         if comparison is not None:
             body.append("<h2>4. One population or several, and how do they share specimens?</h2>")
-            table = comparison.table.drop(columns=[c for c in ("pareto_k_bad",) if c in comparison.table])
+            table = comparison.table.drop(columns=[c for c in ("pareto_k_bad", "degenerate") if c in comparison.table])
             table.to_csv(tmp / "tables" / "model_comparison.csv")
             body.append(_table(table))
             body.append(f'<p class="verdict">{_esc(comparison.verdict)}</p>')
