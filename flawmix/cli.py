@@ -39,11 +39,14 @@ def _add_fit_options(p: argparse.ArgumentParser) -> None:
     p.add_argument("--reference-prior", action="store_true",
                    help="Bayes: prior 1/(σθ m) instead of the weak defaults (improper; see README)")
     p.add_argument("--confidence", type=float, help="two-sided interval level (default 0.90)")
-    p.add_argument("--intervals", default="auto", choices=["auto", "profile", "wald", "pivotal", "none"],
+    p.add_argument("--intervals", default="auto", choices=["auto", "profile", "wald", "pivotal", "bootstrap", "none"],
                    help="interval method (default auto: pivotal for one complete population, else profile)")
     p.add_argument("--positions", default="hazen", choices=["hazen", "mean-rank", "median-rank"],
                    help="plotting positions of the graphical comparison estimate (default hazen, (i-0.5)/N)")
     p.add_argument("--common-modulus", action="store_true", help="impose one modulus on all populations")
+    p.add_argument("--bootstrap", type=int, default=0, metavar="N",
+                   help="MLE: parametric-bootstrap replicates; intervals on derived quantities and predictions, "
+                        "bias-corrected estimates (with --intervals bootstrap they also set the population intervals)")
 
 
 def _load(args):
@@ -75,8 +78,10 @@ def _fit_from_args(args, study, specimens, geometries=None):
     if geometries:
         options["geometries"] = geometries
     if getattr(args, "method", "mle") == "bayes":
-        options = {"priors": study.priors or None, "reference_prior": args.reference_prior, "seed": seed,
-                   "progress": args.progress}
+        options.update({"priors": study.priors or None, "reference_prior": args.reference_prior, "seed": seed,
+                        "progress": args.progress})
+    elif getattr(args, "bootstrap", 0) or args.intervals == "bootstrap":
+        options.update({"bootstrap": args.bootstrap, "seed": seed, "progress": args.progress})
     return fit(specimens, method=getattr(args, "method", "mle"), model=getattr(args, "model", "concurrent"),
                confidence=confidence, intervals=args.intervals, positions=args.positions,
                common_modulus=args.common_modulus, **options)
@@ -189,6 +194,53 @@ def cmd_predict(args) -> int:
     return 0
 
 
+def _parse_population(text: str) -> dict:
+    parts = text.split(":")
+    if len(parts) != 3:
+        raise FlawmixError(f"--population '{text}': write NAME:MODULUS:CHARACTERISTIC_STRENGTH (e.g. pores:6:530)")
+    try:
+        return {"name": parts[0].strip(), "modulus": float(parts[1]), "characteristic_strength": float(parts[2])}
+    except ValueError:
+        raise FlawmixError(f"--population '{text}': modulus and characteristic strength must be numbers") from None
+
+
+def cmd_plan(args) -> int:
+    from .plan import plan, plan_from_fit
+
+    options = {"replicates": args.replicates, "seed": args.seed or 0, "confidence": args.confidence or 0.90,
+               "progress": args.progress}
+    if args.censor_at is not None:
+        options["censor_at"] = args.censor_at
+    if args.population:
+        if args.specimens or args.study:
+            raise FlawmixError("give either assumed --population values or a specimen table to plan from, not both")
+        if args.unidentified is not None:
+            options["unidentified"] = args.unidentified
+        result = plan([_parse_population(p) for p in args.population], args.sizes, **options)
+    else:
+        if not (args.specimens or args.study):
+            raise FlawmixError("plan needs assumed populations (--population NAME:M:SIGMA, repeat) "
+                               "or a specimen table whose fit to plan from")
+        study, specimens = _load(args)
+        from .fit import fit
+
+        if args.unidentified is not None:
+            options["unidentified"] = args.unidentified
+        result = plan_from_fit(fit(specimens, intervals="none"), args.sizes, **options)
+    if args.plot:
+        from . import plots
+
+        target = Path(args.plot)
+        if target.exists() and not args.force:
+            raise FlawmixError(f"{target}: already exists; choose another --plot file or add --force")
+        plots.plan_plot(result).figure.savefig(target, dpi=130, bbox_inches="tight")
+    if args.json:
+        print(json.dumps(result.to_dict(), indent=2, ensure_ascii=False))
+    else:
+        print(result)
+    return 0
+
+
 def demo_paths() -> tuple[Path, Path]:
     from importlib.resources import files
 
@@ -273,6 +325,23 @@ def build_parser() -> argparse.ArgumentParser:
                    help="scale a population's risk: 0 removes it, 0.5 halves it (repeat)")
     p.add_argument("--json", action="store_true")
     p.set_defaults(func=cmd_predict)
+
+    p = sub.add_parser("plan", help="how many specimens: precision, bias and power by simulation")
+    p.add_argument("specimens", nargs="?", help="specimen table whose fitted populations to assume (optional)")
+    _add_grouping(p)
+    p.add_argument("--population", action="append", default=[], metavar="NAME:M:SIGMA",
+                   help="assumed population: name, modulus, characteristic strength (repeat)")
+    p.add_argument("--sizes", type=int, nargs="+", default=[10, 15, 20, 30, 40, 60, 80], help="specimen counts")
+    p.add_argument("--unidentified", type=float, help="share of failures whose origin will not be found")
+    p.add_argument("--censor-at", type=float, help="run-out or proof stress: specimens reaching it survive")
+    p.add_argument("--replicates", type=int, default=2000, help="campaigns simulated per size (default 2000)")
+    p.add_argument("--confidence", type=float, help="central range reported (default 0.90)")
+    p.add_argument("--seed", type=int)
+    p.add_argument("--progress", action="store_true")
+    p.add_argument("--plot", help="save the precision-and-power figure to this PNG/SVG file")
+    p.add_argument("--force", action="store_true", help="replace an existing --plot file")
+    p.add_argument("--json", action="store_true")
+    p.set_defaults(func=cmd_plan)
 
     p = sub.add_parser("report", help="run the whole analysis and write an HTML report folder")
     p.add_argument("specimens", nargs="?", help="specimen table; may come from the study file")

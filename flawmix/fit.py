@@ -25,6 +25,8 @@ def fit(
     max_steps: int = 40_000,
     progress: bool = False,
     geometries=None,
+    bootstrap: int = 0,
+    executor=None,
     **read_options,
 ) -> FitResult:
     """Fit every flaw population of a specimen set.
@@ -41,7 +43,13 @@ def fit(
             both ways round are fitted and the better reported).
         confidence: two-sided level of the intervals (0.90 gives 5 % / 95 % bounds).
         intervals: ``auto`` (pivotal bounds for one complete population, profile likelihood
-            otherwise, Wald beyond 20 000 specimens), ``profile``, ``wald``, ``pivotal``, ``none``.
+            otherwise, Wald beyond 20 000 specimens), ``profile``, ``wald``, ``pivotal``,
+            ``bootstrap`` (parametric bootstrap percentiles; 1000 replicates unless
+            ``bootstrap`` says otherwise), ``none``.
+        bootstrap: number of parametric-bootstrap replicates (MLE, concurrent model): adds
+            draws, so failure probabilities, strengths at a probability and component
+            predictions carry intervals, plus bias-corrected estimates. ``executor`` runs the
+            replicates on a concurrent.futures-style executor.
         positions: plotting-position rule for the graphical comparison estimate:
             ``hazen`` (i − 0.5)/N, ``mean-rank`` i/(N + 1), ``median-rank`` (i − 0.3)/(N + 0.4).
         common_modulus: impose one modulus on all populations.
@@ -64,7 +72,16 @@ def fit(
         return fit_bayes(specimens, confidence, model=model, priors=priors, reference_prior=reference_prior,
                          seed=seed, target_ess=target_ess, max_steps=max_steps, progress=progress,
                          common_modulus=common_modulus, geometries=geometries)
-    from .mle import fit_mle
+    from .mle import attach_bootstrap, fit_mle
 
-    return fit_mle(specimens, confidence, model=model, intervals=intervals, positions=positions,
-                   common_modulus=common_modulus, geometries=geometries)
+    use_bootstrap = intervals == "bootstrap" or bootstrap > 0
+    result = fit_mle(specimens, confidence, model=model, intervals="none" if intervals == "bootstrap" else intervals,
+                     positions=positions, common_modulus=common_modulus, geometries=geometries)
+    if use_bootstrap:
+        boot = attach_bootstrap(result, bootstrap or 1000, seed=seed, executor=executor, progress=progress)
+        if intervals != "bootstrap":   # keep the likelihood intervals, add the draws
+            from dataclasses import replace
+
+            boot = replace(boot, populations=result.populations)
+        result = boot
+    return result

@@ -262,3 +262,34 @@ def likelihood_contour_plot(result, population: str, ax=None, levels=(0.5, 0.8, 
     ax.legend(fontsize=8)
     ax.grid(True, color="#e4e4e4", lw=0.5)
     return ax
+
+
+def plan_plot(plan, ax=None):
+    """Precision of each population's modulus against the number of specimens, and the power
+    to tell the populations apart (right axis)."""
+    ax = _ax(ax, (7.0, 5.2))
+    table = plan.table.reset_index()
+    for j, name in enumerate(plan.assumptions["population"]):
+        colour, marker, filled = _style(j)
+        rows = table[table["population"] == name]
+        ax.plot(rows["specimens"], rows["modulus ±%"], color=colour, marker=marker, lw=2,
+                markerfacecolor=colour if filled else "white", label=f"{name}: modulus ±%")
+        ax.plot(rows["specimens"], rows["strength ±%"], color=colour, marker=marker, lw=1, ls=":",
+                markerfacecolor=colour if filled else "white", label=f"{name}: characteristic strength ±%")
+    ax.set_xlabel("specimens in the campaign")
+    ax.set_ylabel(f"half-width of the central {plan.confidence:.0%} range (%)")
+    ax.grid(True, color="#e4e4e4", lw=0.5)
+    power = table.groupby("specimens")["power (two populations)"].first()
+    if power.notna().any():
+        right = ax.twinx()
+        right.plot(power.index, 100 * power.values, color="black", lw=1.5, ls="--", label="power to detect two populations")
+        right.set_ylim(0, 105)
+        right.set_ylabel("power to detect two populations (%)")
+        handles = ax.get_legend_handles_labels()
+        extra = right.get_legend_handles_labels()
+        ax.legend(handles[0] + extra[0], handles[1] + extra[1], loc="upper center", bbox_to_anchor=(0.5, -0.15),
+                  ncol=2, fontsize=8, frameon=False)
+    else:
+        ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.15), ncol=2, fontsize=8, frameon=False)
+    ax.set_title("How many specimens? Precision and power against campaign size", fontsize=10)
+    return ax
