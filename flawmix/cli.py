@@ -29,6 +29,14 @@ def _add_grouping(p: argparse.ArgumentParser) -> None:
     p.add_argument("--unit", help="stress unit of the strength column: Pa, kPa, MPa (default), GPa, psi, ksi")
 
 
+def _table_command(sub, name: str, help: str, specimens_help: str) -> argparse.ArgumentParser:
+    """A subcommand that reads a specimen table (positional, or from the study file)."""
+    p = sub.add_parser(name, help=help)
+    p.add_argument("specimens", nargs="?", help=specimens_help)
+    _add_grouping(p)
+    return p
+
+
 def _add_fit_options(p: argparse.ArgumentParser) -> None:
     p.add_argument("--method", default="mle", choices=["mle", "bayes"],
                    help="maximum likelihood (default) or Bayesian (emcee) fit")
@@ -283,16 +291,12 @@ def build_parser() -> argparse.ArgumentParser:
     parser.add_argument("--version", action="version", version=f"flawmix {__version__}")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
 
-    p = sub.add_parser("fit", help="fit every flaw population of a specimen table")
-    p.add_argument("specimens", nargs="?", help="specimen table (.csv or .xlsx); may come from the study file")
-    _add_grouping(p)
+    p = _table_command(sub, "fit", "fit every flaw population of a specimen table", "specimen table (.csv or .xlsx); may come from the study file")
     _add_fit_options(p)
     p.add_argument("--json", action="store_true", help="print the result as JSON (schema in README)")
     p.set_defaults(func=cmd_fit)
 
-    p = sub.add_parser("compare", help="compare single, concurrent, exclusive and partial models")
-    p.add_argument("specimens", nargs="?", help="specimen table (.csv or .xlsx); may come from the study file")
-    _add_grouping(p)
+    p = _table_command(sub, "compare", "compare single, concurrent, exclusive and partial models", "specimen table (.csv or .xlsx); may come from the study file")
     p.add_argument("--no-bayes", action="store_true", help="skip the Bayesian fits (no PSIS-LOO; faster)")
     p.add_argument("--bootstrap", type=int, default=199, metavar="N",
                    help="parametric-bootstrap replicates for the boundary test (default 199, 0 = skip)")
@@ -315,9 +319,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--json", action="store_true")
     p.set_defaults(func=cmd_size)
 
-    p = sub.add_parser("predict", help="carry a fit to a component: failure probability, limiting flaw, what-if")
-    p.add_argument("specimens", nargs="?", help="specimen table; may come from the study file")
-    _add_grouping(p)
+    p = _table_command(sub, "predict", "carry a fit to a component: failure probability, limiting flaw, what-if", "specimen table; may come from the study file")
     _add_fit_options(p)
     p.add_argument("--stress", type=float, action="append", help="component reference stress to report (repeat)")
     p.add_argument("--probability", type=float, action="append", help="failure probability to report (repeat)")
@@ -326,9 +328,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--json", action="store_true")
     p.set_defaults(func=cmd_predict)
 
-    p = sub.add_parser("plan", help="how many specimens: precision, bias and power by simulation")
-    p.add_argument("specimens", nargs="?", help="specimen table whose fitted populations to assume (optional)")
-    _add_grouping(p)
+    p = _table_command(sub, "plan", "how many specimens: precision, bias and power by simulation", "specimen table whose fitted populations to assume (optional)")
     p.add_argument("--population", action="append", default=[], metavar="NAME:M:SIGMA",
                    help="assumed population: name, modulus, characteristic strength (repeat)")
     p.add_argument("--sizes", type=int, nargs="+", default=[10, 15, 20, 30, 40, 60, 80], help="specimen counts")
@@ -343,9 +343,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--json", action="store_true")
     p.set_defaults(func=cmd_plan)
 
-    p = sub.add_parser("report", help="run the whole analysis and write an HTML report folder")
-    p.add_argument("specimens", nargs="?", help="specimen table; may come from the study file")
-    _add_grouping(p)
+    p = _table_command(sub, "report", "run the whole analysis and write an HTML report folder", "specimen table; may come from the study file")
     p.add_argument("--out", required=True, help="report folder to create (refuses to replace one without --force)")
     p.add_argument("--force", action="store_true", help="replace an existing report folder")
     p.add_argument("--method", default="mle", choices=["mle", "bayes"], help="estimates shown (default mle)")
