@@ -134,6 +134,10 @@ def _prepare_folder(out: Path, force: bool) -> Path:
         raise FlawmixError(f"{out}: already exists; choose another --out folder or add --force to replace it")
     if out.exists() and not out.is_dir():
         raise FlawmixError(f"{out}: is a file, not a folder; choose another --out")
+    if out.exists() and any(out.iterdir()) and not ((out / "report.html").exists() and (out / "results.json").exists()):
+        # --force replaces earlier reports only: never wipe a folder of other files
+        raise FlawmixError(f"{out}: exists and is not a flawmix report folder; choose another --out "
+                           "(--force only replaces an earlier report)")
     out.parent.mkdir(parents=True, exist_ok=True)
     tmp = Path(tempfile.mkdtemp(prefix=f".{out.name}.", dir=out.parent))
     umask = os.umask(0)

@@ -64,9 +64,15 @@ def test_existing_folder_needs_force_and_failures_leave_it_intact(tmp_path, demo
     sp = fm.read_specimens(demo_paths()[0])
     with pytest.raises(fm.FlawmixError, match="--force"):
         write_report(sp, out, bayes=False, bootstrap=0)
+    # a folder of other files is never wiped, not even with force
+    with pytest.raises(fm.FlawmixError, match="not a flawmix report folder"):
+        write_report(sp, out, force=True, compare_models=False)
     assert (out / "keep.txt").read_text() == "mine"
-    write_report(sp, out, force=True, compare_models=False)
-    assert (out / "report.html").exists() and not (out / "keep.txt").exists()
+    report = tmp_path / "report"
+    write_report(sp, report, compare_models=False)
+    first = (report / "results.json").read_text()
+    write_report(sp, report, force=True, compare_models=False, seed=5)
+    assert (report / "results.json").read_text() != first
     assert not [p for p in tmp_path.iterdir() if p.name.startswith(".")]   # no temporary folders left
 
 
