@@ -6,6 +6,7 @@ limit is hit (then the result says so in plain words).
 """
 from __future__ import annotations
 
+import sys
 import time
 import warnings as _warnings
 
@@ -133,13 +134,15 @@ def fit_bayes(
     sampler = emcee.EnsembleSampler(n_walkers, P, log_prob, vectorize=True, moves=moves or emcee.moves.DEMove())
     # emcee draws from its own RandomState: seed it through its public state property
     sampler.random_state = np.random.RandomState(int(rng.integers(2**31 - 1))).get_state()
-    state = sampler.run_mcmc(start, burn, progress=progress)
+    state = sampler.run_mcmc(start, burn)
+    if progress:
+        print(f"sampling: {n_walkers} walkers, burn-in {burn} steps done", file=sys.stderr, flush=True)
     sampler.reset()
     steps = 0
     diag = None
     names_params = [f"p{i}" for i in range(P)]
     while steps < max_steps:
-        state = sampler.run_mcmc(state, block, progress=progress)
+        state = sampler.run_mcmc(state, block)
         steps += block
         chain = sampler.get_chain()                      # (steps, walkers, P)
         if steps >= 1000 or steps >= max_steps:
@@ -147,6 +150,9 @@ def fit_bayes(
             kept = chain[steps // 5:]
             post = {nm: kept[:, :, i].T for i, nm in enumerate(names_params)}
             diag = _arviz.convergence(post)
+            if progress:
+                print(f"sampling: {steps} steps, R-hat max {diag['r_hat_max']:.4f} (target {R_HAT_TARGET}), "
+                      f"bulk ESS min {diag['ess_bulk_min']:.0f} (target {target_ess:.0f})", file=sys.stderr, flush=True)
             if diag["r_hat_max"] <= R_HAT_TARGET and diag["ess_bulk_min"] >= target_ess:
                 break
         block = min(max(block, steps // 2), 5000)
