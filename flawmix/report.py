@@ -36,7 +36,8 @@ figcaption { font-size: 9pt; color: #444; }
 .caution { background: #fff6ec; border-left: 4px solid #c2571a; padding: 0.5em 0.8em; }
 .small { font-size: 9pt; color: #444; }
 @media print { body { margin: 0; max-width: none; font-size: 9.5pt; } h2 { page-break-after: avoid; }
-  table, figure, .verdict, .caution { page-break-inside: avoid; } }
+  table, figure, .verdict, .caution { page-break-inside: avoid; }
+  figure img { max-height: 115mm; width: auto; } }
 @page { margin: 14mm; }
 """
 

@@ -442,6 +442,11 @@ def format_result(r: FitResult) -> str:
                                  for g, d in r.extras["characteristic_strength_by_geometry"].items()))
         lines.append("material scale σ0: " + ", ".join(
             f"{n} {_fmt(v)} {r.extras['material_scale_unit'][n]}" for n, v in r.extras["material_scale"].items()))
+    boot = r.extras.get("bootstrap")
+    if boot:
+        lines.append(f"parametric bootstrap: {boot['used']} of {boot['replicates']} replicates fitted (seed {boot['seed']}); "
+                     "bias-corrected modulus " + ", ".join(f"{n} {_fmt(v)}" for n, v in boot["modulus_bias_corrected"].items())
+                     + "; bias-corrected σθ " + ", ".join(f"{n} {_fmt(v)}" for n, v in boot["strength_bias_corrected"].items()))
     diag = r.extras.get("diagnostics")
     if diag:
         lines.append(f"sampler: R-hat max {diag['r_hat_max']:.4f}, bulk ESS min {diag['ess_bulk_min']:.0f}, "
