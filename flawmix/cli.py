@@ -100,15 +100,21 @@ def _print_warnings(result) -> None:
         print(f"warning: {w}", file=sys.stderr)
 
 
+def _emit(args, obj, warnings_from=None) -> int:
+    """Print a result as JSON (--json) or as its readable text, then its warnings."""
+    if args.json:
+        print(json.dumps(obj.to_dict(), indent=2, ensure_ascii=False))
+    else:
+        print(obj)
+    if warnings_from is not None:
+        _print_warnings(warnings_from)
+    return 0
+
+
 def cmd_fit(args) -> int:
     study, specimens = _load(args)
     result = _fit_from_args(args, study, specimens)
-    if args.json:
-        print(json.dumps(result.to_dict(), indent=2, ensure_ascii=False))
-    else:
-        print(result)
-    _print_warnings(result)
-    return 0
+    return _emit(args, result, result)
 
 
 def cmd_compare(args) -> int:
@@ -117,11 +123,7 @@ def cmd_compare(args) -> int:
     study, specimens = _load(args)
     seed = args.seed if args.seed is not None else (study.seed if study.seed is not None else 0)
     result = compare(specimens, bayes=not args.no_bayes, bootstrap=args.bootstrap, seed=seed)
-    if args.json:
-        print(json.dumps(result.to_dict(), indent=2, ensure_ascii=False))
-    else:
-        print(result)
-    return 0
+    return _emit(args, result)
 
 
 def cmd_size(args) -> int:
@@ -194,12 +196,7 @@ def cmd_predict(args) -> int:
         kwargs["probabilities"] = args.probability
     pred = predict(result, _coupon_geometry(study, specimens, result), component, changes=changes or None,
                    component_name=name, **kwargs)
-    if args.json:
-        print(json.dumps(pred.to_dict(), indent=2, ensure_ascii=False))
-    else:
-        print(pred)
-    _print_warnings(result)
-    return 0
+    return _emit(args, pred, result)
 
 
 def _parse_population(text: str) -> dict:
@@ -242,11 +239,7 @@ def cmd_plan(args) -> int:
         if target.exists() and not args.force:
             raise FlawmixError(f"{target}: already exists; choose another --plot file or add --force")
         plots.plan_plot(result).figure.savefig(target, dpi=130, bbox_inches="tight")
-    if args.json:
-        print(json.dumps(result.to_dict(), indent=2, ensure_ascii=False))
-    else:
-        print(result)
-    return 0
+    return _emit(args, result)
 
 
 def demo_paths() -> tuple[Path, Path]:
