@@ -368,14 +368,15 @@ def fit_mle(
         checksum=specimens.checksum,
         specimens=specimens,
         extras={"iterations": opt.iterations, **_sized_extras(sized, specimens, m_hat, np.exp(v + centre)),
-                **_covariance(opt, tie, centre, spec)},
+                **_covariance(opt, tie, centre, spec, data)},
         partial_population=partial_name,
     )
 
 
-def _covariance(opt, tie, centre, spec) -> dict:
-    """Inverse observed information in (ln m, ln σθ, extra) for normal-approximation bands
-    (kept as arrays, so they stay out of the JSON export)."""
+def _covariance(opt, tie, centre, spec, data) -> dict:
+    """Inverse observed information in (ln m, ln σθ, extra) for normal-approximation bands,
+    with the model and the (uncentred) data it was fitted on (kept as objects, so they stay
+    out of the JSON export)."""
     try:
         J = np.eye(opt.theta.size) if tie is None else tie
         cov = J @ np.linalg.inv(-opt.hessian) @ J.T
@@ -385,7 +386,8 @@ def _covariance(opt, tie, centre, spec) -> dict:
         return {}
     theta = opt.theta.copy()
     theta[spec.k:2 * spec.k] += centre
-    return {"theta_hat": theta, "covariance": cov, "model_spec": spec}
+    fitted = lik.Data(data.y + centre, data.failed, data.candidates, data.geometry)
+    return {"theta_hat": theta, "covariance": cov, "model_spec": spec, "fit_data": fitted}
 
 
 def _sized_extras(sized, specimens, moduli, scales) -> dict:
@@ -499,7 +501,7 @@ def likelihood_surface(result: FitResult, population: str, n: int = 80, span: fl
     sd_u, sd_v = np.sqrt(cov[j, j]), np.sqrt(cov[k + j, k + j])
     u = theta[j] + np.linspace(-span, span, n) * sd_u
     v = theta[k + j] + np.linspace(-span, span, n) * sd_v
-    data = lik.Data(np.log(result.specimens.strength), result.specimens.failed, result.specimens.candidates)
+    data = result.extras["fit_data"]   # includes each specimen's geometry for sized fits
     grid = np.repeat(theta[None, None, :], n, axis=0).repeat(n, axis=1)
     grid[:, :, j] = u[:, None]
     grid[:, :, k + j] = v[None, :]

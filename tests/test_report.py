@@ -139,3 +139,29 @@ def test_report_renders_in_headless_chromium(demo_report, tmp_path):
               or (e.get("method") == "Log.entryAdded" and e["params"]["entry"].get("level") == "error")]
     assert errors == []
     assert (tmp_path / "report.png").stat().st_size > 10_000
+
+
+def test_report_for_specimens_of_two_geometries(tmp_path):
+    # the likelihood contours must use each specimen's own geometry (this used to crash)
+    from flawmix.geometry import Geometry
+    rng = np.random.default_rng(80)
+    specs = {"B": {"type": "flexure-4pt", "width": 4, "depth": 3, "outer_span": 40, "inner_span": 20},
+             "L": {"type": "flexure-4pt", "width": 8, "depth": 6, "outer_span": 80, "inner_span": 40}}
+    m, s0, rows = np.array([6.0, 15.0]), np.array([700.0, 600.0]), []
+    for name in specs:
+        g = Geometry.from_spec(name, specs[name])
+        scale = s0 * np.exp(-np.array([g.log_size(k, mm) for k, mm in zip(["volume", "surface"], m)]) / m)
+        d = scale * rng.weibull(1.0, (40, 2)) ** (1 / m)
+        rows.append(pd.DataFrame({"strength": d.min(1), "origin": np.where(d.argmin(1) == 0, "pore", "grind"),
+                                  "geometry": name}))
+    pd.concat(rows).to_csv(tmp_path / "bars.csv", index=False)
+    lines = ['specimens = "bars.csv"', "[populations.pore]", 'kind = "volume"', "[populations.grind]",
+             'kind = "surface"']
+    for name, spec in specs.items():
+        lines += [f"[geometries.{name}]"] + [f'{k} = "{v}"' if isinstance(v, str) else f"{k} = {v}" for k, v in spec.items()]
+    (tmp_path / "study.toml").write_text("\n".join(lines) + "\n")
+    study = read_study(tmp_path / "study.toml")
+    sp = fm.read_specimens(study.specimens, study.populations)
+    write_report(sp, tmp_path / "out", study=study)
+    page = (tmp_path / "out" / "report.html").read_text()
+    assert "Likelihood contours of population &#x27;pore&#x27;" in page
