@@ -74,15 +74,13 @@ def _load(args):
     return study, specimens
 
 
-def _fit_from_args(args, study, specimens, geometries=None):
+def _fit_from_args(args, study, specimens):
     from .fit import fit
 
     confidence = args.confidence if args.confidence is not None else (study.confidence or 0.90)
     seed = args.seed if getattr(args, "seed", None) is not None else (study.seed if study.seed is not None else 0)
     options = {}
-    if geometries is None and specimens.geometry is not None and study.geometries:
-        if len(set(specimens.geometry)) > 1:
-            geometries = study.geometry_objects()
+    geometries = study.fit_geometries(specimens)
     if geometries:
         options["geometries"] = geometries
     if getattr(args, "method", "mle") == "bayes":
@@ -153,29 +151,13 @@ def cmd_size(args) -> int:
     return 0
 
 
-def _coupon_geometry(study, specimens, result):
-    geoms = study.geometry_objects()
-    if "reference_geometry" in result.extras:
-        return geoms[result.extras["reference_geometry"]]
-    name = study.geometry
-    if name is None and specimens.geometry is not None and len(set(specimens.geometry)) == 1:
-        name = specimens.geometry[0]
-    if name is None:
-        raise FlawmixError(f"{study.path or 'study file'}: say which geometry the specimens have "
-                           "(geometry = \"NAME\" with a [geometries.NAME] table, or a 'geometry' column)")
-    if name not in geoms:
-        raise FlawmixError(f"{study.path}: geometry '{name}' is not defined; add a [geometries.{name}] table")
-    return geoms[name]
-
-
 def cmd_predict(args) -> int:
     from .predict import predict
 
     if not args.study:
         raise FlawmixError("predict needs --study FILE with the specimen geometry and a [component] table")
     study, specimens = _load(args)
-    geoms = study.geometry_objects()
-    result = _fit_from_args(args, study, specimens, geometries=geoms if specimens.geometry is not None else None)
+    result = _fit_from_args(args, study, specimens)
     comp = study.component_object()
     if comp is None:
         raise FlawmixError(f"{study.path}: no [component] table; describe the part (type = ..., sizes or element tables)")
@@ -194,7 +176,7 @@ def cmd_predict(args) -> int:
         kwargs["stresses"] = args.stress
     if args.probability:
         kwargs["probabilities"] = args.probability
-    pred = predict(result, _coupon_geometry(study, specimens, result), component, changes=changes or None,
+    pred = predict(result, study.specimen_geometry(specimens, result), component, changes=changes or None,
                    component_name=name, **kwargs)
     return _emit(args, pred, result)
 

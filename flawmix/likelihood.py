@@ -161,6 +161,53 @@ def concurrent_derivatives(data: Data, theta: np.ndarray) -> tuple[float, np.nda
     return ll, grad, hess
 
 
+def concurrent_derivatives_batch(data: lik.Data, theta: np.ndarray):
+    """Log-likelihood (R,), gradient (R, 2k) and Hessian (R, 2k, 2k) of the concurrent model
+    for R data sets (data arrays with leading dim R) at parameter sets theta (R, 2k).
+
+    The same formulas as :func:`concurrent_derivatives`, row by row for every failure (no
+    sufficient statistics), which is the faster layout for many small data sets."""
+    k = data.k
+    u, v = theta[:, :k], theta[:, k:]
+    m = np.exp(u)[:, None, :]                       # (R, 1, k)
+    y = data.y[:, :, None]                          # (R, N, 1)
+    z = m * (y - v[:, None, :])                     # (R, N, k)
+    with np.errstate(over="ignore"):
+        H = np.exp(z)
+    logh = u[:, None, :] - y + z
+    lse, pi = _masked_logsumexp(logh, data.candidates)
+    F = data.failed[:, :, None]
+    pi = np.where(F, pi, 0.0)
+    ll = np.where(data.failed, lse, 0.0).sum(axis=1) - H.sum(axis=(1, 2))
+    Hz = H * z
+    a = pi * (1.0 + z)
+    b = -pi * m
+    g = np.concatenate([a.sum(1) - Hz.sum(1), m[:, 0] * (H.sum(1) - pi.sum(1))], axis=1)
+    uu = -np.einsum("rnj,rnl->rjl", a, a)
+    uv = -np.einsum("rnj,rnl->rjl", a, b)
+    vv = -np.einsum("rnj,rnl->rjl", b, b)
+    idx = np.arange(k)
+    mm = m[:, 0]
+    uu[:, idx, idx] += (pi * (z + (1 + z) ** 2)).sum(1) - (Hz * (z + 1)).sum(1)
+    uv[:, idx, idx] += -mm * (pi * (2 + z)).sum(1) + mm * (H * (z + 1)).sum(1)
+    vv[:, idx, idx] += mm**2 * (pi.sum(1) - H.sum(1))
+    hess = np.concatenate([np.concatenate([uu, uv], 2), np.concatenate([np.transpose(uv, (0, 2, 1)), vv], 2)], 1)
+    return ll, g, hess
+
+
+def starting_responsibilities(data: Data, split: str = "by-count") -> np.ndarray:
+    """(..., N, k) a first split of each failure over its candidates: in proportion to each
+    candidate's certain failures (``by-count``) or equally (``equal``); 0 for survivors."""
+    cand = data.candidates & data.failed[..., None]
+    resp = cand.astype(float)
+    if split == "by-count":
+        certain = cand.sum(-1) == 1
+        counts = (cand & certain[..., None]).sum(-2, keepdims=True) + 0.5
+        resp = resp * counts
+    total = resp.sum(-1, keepdims=True)
+    return np.where(total > 0, resp / np.where(total > 0, total, 1.0), 0.0)
+
+
 def responsibilities(data: Data, log_modulus, log_scale) -> np.ndarray:
     """(..., N, k) probability that population j caused failure i (0 for survivors)."""
     u = np.asarray(log_modulus, dtype=float)

@@ -34,16 +34,9 @@ def _centred_data(specimens: Specimens) -> tuple[lik.Data, float]:
 def _em_start(data: lik.Data, split: str, max_iter: int | None = None) -> np.ndarray:
     """A starting point from a few EM steps; only uncertain failures are re-split."""
     k = data.k
-    cand = data.candidates.astype(float)
     F = data.failed
-    n_cand = cand.sum(axis=1)
-    if split == "by-count":
-        counts = cand[F & (n_cand == 1)].sum(axis=0) + 0.5
-        resp = cand * counts
-    else:
-        resp = cand.copy()
-    total = resp.sum(axis=1, keepdims=True)
-    resp = np.where(total > 0, resp / np.where(total > 0, total, 1.0), 0.0)
+    n_cand = data.candidates.sum(axis=1)
+    resp = lik.starting_responsibilities(data, split)
     if max_iter is None:  # EM only has to get close; Newton finishes, so keep big data cheap
         max_iter = 3 if data.y.size <= 10_000 else 2
     uncertain = np.flatnonzero(F & (n_cand > 1))
@@ -479,11 +472,6 @@ def _degeneracy_notes(spec: lik.Model, specimens: Specimens, theta: np.ndarray, 
     return notes
 
 
-def fit_concurrent_mle(specimens: Specimens, confidence: float = 0.90, **options) -> FitResult:
-    """Competing-risk censored MLE of concurrent populations (kept for callers of the first API)."""
-    return fit_mle(specimens, confidence, model="concurrent", **options)
-
-
 def likelihood_surface(result: FitResult, population: str, n: int = 80, span: float = 5.0):
     """Relative log-likelihood over (modulus, characteristic strength) of one population,
     the other parameters held at their estimates (for concurrent fits with every origin
@@ -532,10 +520,9 @@ def attach_bootstrap(result: FitResult, replicates: int = 1000, seed=0, executor
     sp = result.specimens
     design = Design.like(sp)
     k = len(result.populations)
-    moduli = result.moduli.copy()
-    if common := (result.model == "concurrent-common-modulus"):
+    if result.model == "concurrent-common-modulus":
         raise FlawmixError("bootstrap the free-modulus concurrent fit instead of the common-modulus one")
-    fits = simulate_and_fit(lik.Model("concurrent", k), moduli, result.characteristic_strengths, None, design,
+    fits = simulate_and_fit(lik.Model("concurrent", k), result.moduli, result.characteristic_strengths, None, design,
                             replicates, seed, executor, progress=progress)
     ok = fits.ok
     m, s = fits.moduli[ok], fits.scales[ok]
@@ -565,5 +552,4 @@ def attach_bootstrap(result: FitResult, replicates: int = 1000, seed=0, executor
                                     for j, p in enumerate(result.populations)},
         "modulus_mean_ratio": {p.name: float(m[:, j].mean() / p.modulus) for j, p in enumerate(result.populations)},
     }
-    del common
     return replace(result, populations=tuple(pops), draws=draws, extras=extras)

@@ -257,15 +257,17 @@ def what_if(result: FitResult, coupon: Geometry | None, component: Geometry | No
         s = strengths(body, m, result.characteristic_strengths)
         # a risk factor f multiplies (σ/σθ)^m, i.e. divides σθ by f^(1/m)
         s_after = s[keep] / factor[keep] ** (1 / m[keep])
+        if draws is not None:
+            sd = strengths(body, draws.moduli, draws.scales)
+            sd_after = sd[:, keep] / factor[keep] ** (1 / draws.moduli[:, keep])
         for p in probs:
             before = dist.model_ppf("concurrent", p, m[None], s[None])[0]
             after = dist.model_ppf("concurrent", p, m[keep][None], s_after[None])[0]
             row = {"body": label, "failure probability": p, "before": before, "after": after,
                    "gain (%)": 100 * (after / before - 1)}
             if draws is not None:
-                sd = strengths(body, draws.moduli, draws.scales)
                 b = dist.model_ppf("concurrent", p, draws.moduli, sd)
-                a = dist.model_ppf("concurrent", p, draws.moduli[:, keep], sd[:, keep] / factor[keep] ** (1 / draws.moduli[:, keep]))
+                a = dist.model_ppf("concurrent", p, draws.moduli[:, keep], sd_after)
                 lo, hi = _quantiles(100 * (a / b - 1), result.confidence)
                 row["gain low (%)"], row["gain high (%)"] = lo, hi
             rows.append(row)

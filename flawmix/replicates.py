@@ -14,37 +14,6 @@ from . import likelihood as lik
 from .censored import censored_weibull_mle
 
 
-def batched_derivatives(data: lik.Data, theta: np.ndarray):
-    """Log-likelihood (R,), gradient (R, 2k) and Hessian (R, 2k, 2k) of the concurrent model
-    for R data sets (data arrays with leading dim R) at parameter sets theta (R, 2k)."""
-    k = data.k
-    u, v = theta[:, :k], theta[:, k:]
-    m = np.exp(u)[:, None, :]                       # (R, 1, k)
-    y = data.y[:, :, None]                          # (R, N, 1)
-    z = m * (y - v[:, None, :])                     # (R, N, k)
-    with np.errstate(over="ignore"):
-        H = np.exp(z)
-    logh = u[:, None, :] - y + z
-    lse, pi = lik._masked_logsumexp(logh, data.candidates)
-    F = data.failed[:, :, None]
-    pi = np.where(F, pi, 0.0)
-    ll = np.where(data.failed, lse, 0.0).sum(axis=1) - H.sum(axis=(1, 2))
-    Hz = H * z
-    a = pi * (1.0 + z)
-    b = -pi * m
-    g = np.concatenate([a.sum(1) - Hz.sum(1), m[:, 0] * (H.sum(1) - pi.sum(1))], axis=1)
-    uu = -np.einsum("rnj,rnl->rjl", a, a)
-    uv = -np.einsum("rnj,rnl->rjl", a, b)
-    vv = -np.einsum("rnj,rnl->rjl", b, b)
-    idx = np.arange(k)
-    mm = m[:, 0]
-    uu[:, idx, idx] += (pi * (z + (1 + z) ** 2)).sum(1) - (Hz * (z + 1)).sum(1)
-    uv[:, idx, idx] += -mm * (pi * (2 + z)).sum(1) + mm * (H * (z + 1)).sum(1)
-    vv[:, idx, idx] += mm**2 * (pi.sum(1) - H.sum(1))
-    hess = np.concatenate([np.concatenate([uu, uv], 2), np.concatenate([np.transpose(uv, (0, 2, 1)), vv], 2)], 1)
-    return ll, g, hess
-
-
 def fit_concurrent_batch(data: lik.Data, *, em_steps: int = 25, newton_steps: int = 60, score_tol: float = 1e-8):
     """MLE of the concurrent model for every replicate.
 
@@ -57,11 +26,7 @@ def fit_concurrent_batch(data: lik.Data, *, em_steps: int = 25, newton_steps: in
     n_cand = cand.sum(-1)
     possible = cand.sum(1)                                     # (R, k)
     ok = np.all(possible > 0, axis=1)
-    certain = (n_cand == 1)
-    counts = (cand & certain[..., None]).sum(1) + 0.5          # (R, k)
-    resp = cand * counts[:, None, :]
-    tot = resp.sum(-1, keepdims=True)
-    resp = np.where(tot > 0, resp / np.where(tot > 0, tot, 1), 0.0)
+    resp = lik.starting_responsibilities(data, "by-count")
     y = data.y
     yk = np.broadcast_to(y[:, None, :], (R, k, N))
     uncertain_any = bool(np.any(F & (n_cand > 1)))
@@ -81,7 +46,7 @@ def fit_concurrent_batch(data: lik.Data, *, em_steps: int = 25, newton_steps: in
     if uncertain_any:
         lo = np.concatenate([np.full(k, lik.LOG_MODULUS_MIN), np.full(k, -np.inf)])
         hi = np.concatenate([np.full(k, lik.LOG_MODULUS_MAX), np.full(k, np.inf)])
-        ll, g, Hs = batched_derivatives(data, theta)
+        ll, g, Hs = lik.concurrent_derivatives_batch(data, theta)
         for _ in range(newton_steps):
             active = ok & (np.max(np.abs(g), axis=1) > score_tol)
             if not active.any():
@@ -106,7 +71,7 @@ def fit_concurrent_batch(data: lik.Data, *, em_steps: int = 25, newton_steps: in
                     break
                 scale = np.where(accepted, scale, scale / 2)
             theta[active] = t_act
-            ll_a, g_a, H_a = batched_derivatives(sub, t_act)
+            ll_a, g_a, H_a = lik.concurrent_derivatives_batch(sub, t_act)
             ll[active], g[active], Hs[active] = ll_a, g_a, H_a
             stalled = ~accepted
             if stalled.any():   # no ascent possible at machine precision: a maximum

@@ -190,14 +190,13 @@ def write_report(
         (tmp / "figures").mkdir()
         (tmp / "tables").mkdir()
         conf = confidence or (study.confidence if study and study.confidence else 0.90)
-        geoms = study.geometry_objects() if study else {}
-        sized = specimens.geometry is not None and len(set(specimens.geometry)) > 1 and geoms
+        sized = study.fit_geometries(specimens) if study else None
         with _warnings.catch_warnings():
             _warnings.simplefilter("ignore", FlawmixWarning)
-            mle = fit(specimens, confidence=conf, geometries=geoms if sized else None)
+            mle = fit(specimens, confidence=conf, geometries=sized)
             main = fit(specimens, method="bayes", confidence=conf, seed=seed,
                        priors=(study.priors or None) if study else None,
-                       geometries=geoms if sized else None) if method == "bayes" else mle
+                       geometries=sized) if method == "bayes" else mle
             comparison = compare(specimens, bayes=bayes, bootstrap=bootstrap, seed=seed, confidence=conf) \
                 if compare_models and len(specimens.populations) > 1 and not sized else None
         figs = _Figures(tmp / "figures")
@@ -275,7 +274,7 @@ def write_report(
         # 5. which flaw limits strength, and the component
         body.append("<h2>5. Which flaw population limits strength, and what removing it would gain</h2>")
         comp = study.component_object() if study else None
-        coupon = _coupon(study, specimens, mle, geoms)
+        coupon = study.specimen_geometry(specimens, mle, required=False) if study and study.geometries else None
         prediction = None
         if main.model.startswith("concurrent"):
             if comp is not None and coupon is not None:
@@ -388,17 +387,6 @@ def _crossovers(result):
     from .predict import crossovers
 
     return crossovers(result.moduli, result.characteristic_strengths, [p.name for p in result.populations])
-
-
-def _coupon(study, specimens, result, geoms):
-    if not study or not geoms:
-        return None
-    if "reference_geometry" in result.extras:
-        return geoms[result.extras["reference_geometry"]]
-    name = study.geometry
-    if name is None and specimens.geometry is not None and len(set(specimens.geometry)) == 1:
-        name = specimens.geometry[0]
-    return geoms.get(name) if name else None
 
 
 def _origin_counts(specimens) -> pd.DataFrame:

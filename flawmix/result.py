@@ -199,9 +199,8 @@ class FitResult:
     def ppf(self, probability):
         """Stress at which a specimen's failure probability equals ``probability``."""
         p = np.atleast_1d(np.asarray(probability, dtype=float))
-        lo = float(self.characteristic_strengths.min()) * 1e-3
-        hi = float(self.characteristic_strengths.max()) * 10
-        out = np.array([dist.invert_sf(self.sf, q, lo, hi) for q in p.ravel()]).reshape(p.shape)
+        out = np.array([dist.model_ppf(self.model, q, *self._point_params(), self._partial_index)[0]
+                        for q in p.ravel()]).reshape(p.shape)
         return out if np.ndim(probability) else float(out[0])
 
     def failure_shares(self, stress) -> pd.DataFrame:

@@ -9,7 +9,7 @@ import hashlib
 import re
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Iterable, Mapping
+from typing import Mapping
 
 import numpy as np
 import pandas as pd
@@ -421,11 +421,3 @@ def check_estimable(specimens: Specimens) -> list[str]:
             else:
                 warnings.append(f"population '{name}' has only one failure; its estimate is unreliable")
     return warnings
-
-
-def iter_population_rows(specimens: Specimens) -> Iterable[tuple[str, int, int]]:
-    """(name, certain, possible) per population, for summaries."""
-    certain = specimens.certain_failures()
-    possible = specimens.possible_failures()
-    for j, p in enumerate(specimens.populations):
-        yield p.name, int(certain[j]), int(possible[j])

@@ -46,7 +46,40 @@ class Study:
     geometry: str | None = None          # geometry of every specimen when the table has no column
 
     def geometry_objects(self) -> dict:
-        """The [geometries.NAME] tables as :class:`flawmix.geometry.Geometry` objects."""
+        """The [geometries.NAME] tables as :class:`flawmix.geometry.Geometry` objects (built
+        once per study: element tables are read and tabulated over m)."""
+        cached = self.__dict__.get("_geometry_cache")
+        if cached is None:
+            cached = self._build_geometries()
+            object.__setattr__(self, "_geometry_cache", cached)
+        return cached
+
+    def fit_geometries(self, specimens) -> dict | None:
+        """The geometries to fit jointly, when the specimens span several; else None."""
+        if specimens.geometry is None or len(set(specimens.geometry)) < 2 or not self.geometries:
+            return None
+        return self.geometry_objects()
+
+    def specimen_geometry(self, specimens, result, required: bool = True):
+        """The geometry the fitted characteristic strengths refer to: the reference geometry
+        of a joint fit, the study's ``geometry``, or the one geometry of the table. None (or
+        an error when ``required``) when the study does not say."""
+        geoms = self.geometry_objects()
+        if "reference_geometry" in result.extras:
+            return geoms[result.extras["reference_geometry"]]
+        name = self.geometry
+        if name is None and specimens.geometry is not None and len(set(specimens.geometry)) == 1:
+            name = specimens.geometry[0]
+        if name is None or name not in geoms:
+            if not required:
+                return None
+            if name is None:
+                raise FlawmixError(f"{self.path or 'study file'}: say which geometry the specimens have "
+                                   "(geometry = \"NAME\" with a [geometries.NAME] table, or a 'geometry' column)")
+            raise FlawmixError(f"{self.path}: geometry '{name}' is not defined; add a [geometries.{name}] table")
+        return geoms[name]
+
+    def _build_geometries(self) -> dict:
         from .geometry import Geometry
 
         base = self.path.parent if self.path else None
