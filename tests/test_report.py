@@ -95,6 +95,7 @@ def test_report_renders_in_headless_chromium(demo_report, tmp_path):
     profile = tmp_path / "profile"
     proc = subprocess.Popen([browser, "--headless", "--no-sandbox", "--disable-gpu", "--no-first-run",
                              "--disable-background-networking", "--disable-component-update", "--disable-sync",
+                             "--disable-quic", "--remote-allow-origins=*",
                              "--remote-debugging-port=0", f"--user-data-dir={profile}", "--window-size=1100,1400",
                              "about:blank"], stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
     try:
