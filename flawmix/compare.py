@@ -19,6 +19,7 @@ from scipy import stats as _sstats
 
 from . import likelihood as lik
 from .errors import FlawmixError, FlawmixWarning
+from .evidence import evidence_words, loo_words, verdict_sentence
 from .result import FitResult, HypothesisTest, _num
 from .simulate import Design, replicate, simulate
 from .specimens import Specimens
@@ -68,16 +69,6 @@ class Comparison:
         lines.append(f"preferred: {self.preferred}")
         lines.append(self.verdict)
         return "\n".join(lines)
-
-
-def _strength_words(z: float) -> str:
-    if z < 1:
-        return "no real preference"
-    if z < 2:
-        return "weak evidence"
-    if z < 4:
-        return "moderate evidence"
-    return "strong evidence"
 
 
 def _bootstrap_partial_vs_concurrent(specimens: Specimens, concurrent: FitResult, observed: float,
@@ -222,7 +213,7 @@ def _verdict(table, order, bayes, bayes_fits, specimens) -> str:
         delta = float(diff.sum())
         se = float(math.sqrt(diff.size * np.var(diff))) if diff.size > 1 else float("nan")
         z = delta / se if se > 0 else float("inf")
-        words = _strength_words(z)
+        words = loo_words(delta, se)
         text = (f"By leave-one-out predictive accuracy (PSIS-LOO) the '{best}' model is preferred over "
                 f"'{second}' by {delta:.1f} ± {se:.1f} in expected log predictive density: {words}.")
     else:
@@ -240,7 +231,7 @@ def _verdict(table, order, bayes, bayes_fits, specimens) -> str:
                 np.asarray(bayes_fits["single"].extras["elpd_loo_pointwise"])
             d, se = float(diff.sum()), float(math.sqrt(diff.size * np.var(diff)))
             text += (f" One pooled population is worse than '{best}' by {d:.1f} ± {se:.1f} "
-                     f"({_strength_words(d / se if se > 0 else float('inf'))} that the flaw populations differ "
+                     f"({loo_words(d, se)} that the flaw populations differ "
                      "by predictive accuracy; see the likelihood-ratio test of a common modulus for a test).")
         else:
             d = float(table.loc["single", "aic"] - table.loc[best, "aic"])

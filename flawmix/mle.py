@@ -15,6 +15,7 @@ from scipy import stats as _sstats
 from . import likelihood as lik
 from .censored import censored_weibull_mle, weibull_regression
 from .errors import FlawmixError, FlawmixWarning
+from .evidence import verdict_sentence
 from .optimize import newton_maximise, profile_interval, wald_interval
 from .pivots import complete_sample_pivots, ross_unbiasing_factor
 from .positions import adjusted_ranks, plotting_positions, position_rule
@@ -277,9 +278,12 @@ def fit_mle(
         unbiased[0] = float(m_hat[0] * uf)
     mod_int, str_int, frac_int = [], [], [None] * k
 
+    problems: list[str] = []
+
     def interval(index, limits=(-np.inf, np.inf)):
         if method == "profile":
-            return profile_interval(deriv, opt, index, confidence, tie=tie, lower=lower, upper=upper, limits=limits)
+            return profile_interval(deriv, opt, index, confidence, tie=tie, lower=lower, upper=upper, limits=limits,
+                                    problems=problems)
         return wald_interval(opt, index, confidence, tie)
 
     for j in range(k):
@@ -306,6 +310,9 @@ def fit_mle(
         else:
             frac_int[spec.partial_index] = (sig(lo_t), sig(hi_t))
 
+    for line in dict.fromkeys(problems):
+        _warnings.warn(line, FlawmixWarning, stacklevel=3)
+        notes.append(line)
     certain = specimens.certain_failures()
     possible = specimens.possible_failures()
     pops = []
@@ -331,8 +338,7 @@ def fit_mle(
             statistic=stat, df=k - 1, p_value=p, method="likelihood ratio, χ²",
             meaning=("Null: all populations share one modulus, which is the same as one pooled Weibull "
                      "population whose origin labels are independent of strength. "
-                     + ("The data reject it: the populations differ." if p < 0.05 else
-                        "The data do not reject it at the 5 % level."))))
+                     + verdict_sentence(p, "one common modulus"))))
     if not opt.converged:
         notes.append("the maximisation stopped before the score reached its tolerance")
     notes.extend(_degeneracy_notes(spec, specimens, theta, at_bound))

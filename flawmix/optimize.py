@@ -111,16 +111,23 @@ def profile_interval(
     lower: np.ndarray | None = None,
     upper: np.ndarray | None = None,
     limits: tuple[float, float] = (-np.inf, np.inf),
+    drops: tuple[float, float] | None = None,
+    problems: list | None = None,
 ) -> tuple[float, float]:
     """Profile-likelihood interval of full parameter ``index`` (e.g. a log modulus).
 
-    Solves ll_max − max_{others} ll(θ_index = t) = χ²_1(confidence)/2 on each side by
-    bracketing and Brent's method. A side that never falls below the cut within
-    ``limits`` is returned as ±inf (the data do not bound it).
+    Solves ll_max − max_{others} ll(θ_index = t) = drop on each side by bracketing and
+    Brent's method; ``drops`` (below, above the estimate) defaults to χ²_1(confidence)/2 on
+    both sides (a calibrated cut-off passes its own). A side that never falls below the cut
+    within ``limits`` is returned as ±inf (the data do not bound it). A side whose root
+    cannot be located (the bracket is inconsistent, the inner maximisation fails) is also
+    returned as ±inf, never as a finite accident, and a line saying so is appended to
+    ``problems``.
     """
     P = optimum.theta.size
     J = np.eye(P) if tie is None else np.asarray(tie, dtype=float)
-    cut = optimum.loglik - chi2_cutoff(confidence)
+    if drops is None:
+        drops = (chi2_cutoff(confidence), chi2_cutoff(confidence))
     # The fixed parameter must map to exactly one free column.
     col = np.flatnonzero(J[index])
     if col.size != 1:
@@ -135,49 +142,73 @@ def profile_interval(
         se = float(np.sqrt(max(cov[col, col], 1e-12)))
     except np.linalg.LinAlgError:
         se = 0.1
-    se = min(max(se, 1e-4), 1.0)
+    se = min(max(se, 1e-4), 1.0) if np.isfinite(se) else 0.1
     warm = {"theta": optimum.theta.copy()}
 
-    def profile(t: float) -> float:
+    def profile(t: float, cut: float) -> float:
         offset = basis * t
         start = warm["theta"] + basis * (t - warm["theta"][index])
         opt = newton_maximise(derivatives, start, tie=Jr, offset=offset, lower=lower, upper=upper,
                               score_tol=1e-8, max_iter=100)
-        warm["theta"] = opt.theta
+        if np.isfinite(opt.loglik):
+            warm["theta"] = opt.theta
+        # a profile value can never exceed the maximum; a larger one means the start was
+        # not the global maximum, and the side is treated as unlocatable below
         return opt.loglik - cut
 
     bounds = []
-    for direction in (-1.0, 1.0):
-        warm["theta"] = optimum.theta.copy()
-        limit = limits[0] if direction < 0 else limits[1]
-        step = 2.0 * se
-        prev = center
-        found = None
-        for _ in range(60):
-            t = center + direction * step
-            if (direction < 0 and t <= limit) or (direction > 0 and t >= limit):
-                t = limit
-            if profile(t) < 0:
-                found = (prev, t)
-                break
-            if t == limit:
-                break
-            prev = t
-            step *= 1.6
-        if found is None:
-            bounds.append(direction * np.inf)
-            continue
-        warm["theta"] = optimum.theta.copy()
-        a, b = sorted(found)
-        bounds.append(_sopt.brentq(profile, a, b, xtol=1e-9, rtol=1e-12))
+    for direction, drop in zip((-1.0, 1.0), drops):
+        cut = optimum.loglik - max(float(drop), 0.0)
+        bounds.append(_one_side(profile, cut, center, direction, se, limits, problems))
     return bounds[0], bounds[1]
+
+
+def _one_side(profile, cut, center, direction, se, limits, problems) -> float:
+    """Bracket and solve one end of a profile interval (see :func:`profile_interval`)."""
+    limit = limits[0] if direction < 0 else limits[1]
+    step = 2.0 * se
+    prev, f_prev = center, np.inf
+    found = None
+    for _ in range(60):
+        t = center + direction * step
+        if (direction < 0 and t <= limit) or (direction > 0 and t >= limit):
+            t = limit
+        f = profile(t, cut)
+        if not np.isfinite(f):
+            break
+        if f < 0:
+            found = (prev, t)
+            break
+        if t == limit:
+            return direction * np.inf      # the data do not bound this side
+        prev, f_prev = t, f
+        step *= 1.6
+    if found is None:
+        if problems is not None:
+            problems.append("a profile-likelihood bound could not be bracketed; it is reported as unbounded")
+        return direction * np.inf
+    a, b = sorted(found)
+    try:
+        return float(_sopt.brentq(lambda t: profile(t, cut), a, b, xtol=1e-9, rtol=1e-12))
+    except (ValueError, RuntimeError):
+        # The inner maximisation found different maxima on two calls at the same point
+        # (several local maxima): no trustworthy root in this bracket.
+        if problems is not None:
+            problems.append("a profile-likelihood bound could not be located (the profile is not "
+                            "monotone there: several local maxima); it is reported as unbounded")
+        return direction * np.inf
 
 
 def wald_interval(optimum: Optimum, index: int, confidence: float, tie: np.ndarray | None = None):
     """Normal-theory interval from the observed information (for very large samples)."""
     P = optimum.theta.size
     J = np.eye(P) if tie is None else np.asarray(tie, dtype=float)
-    cov = J @ np.linalg.inv(-optimum.hessian) @ J.T
+    try:
+        cov = J @ np.linalg.inv(-optimum.hessian) @ J.T
+    except np.linalg.LinAlgError:   # no curvature: the data do not bound the parameter
+        return -np.inf, np.inf
     z = float(_sstats.norm.ppf(0.5 + confidence / 2))
     se = float(np.sqrt(max(cov[index, index], 0.0)))
+    if not np.isfinite(se):
+        return -np.inf, np.inf
     return optimum.theta[index] - z * se, optimum.theta[index] + z * se

@@ -107,3 +107,43 @@ def test_wald_and_profile_agree_for_large_samples():
     for a, b in zip(prof.populations, wald.populations):
         np.testing.assert_allclose(a.modulus_interval, b.modulus_interval, rtol=0.01)
         np.testing.assert_allclose(a.strength_interval, b.strength_interval, rtol=0.002)
+
+
+# ---- never a crash: failed brackets are unbounded ends with a warning (issue 12) ------------
+
+def _partial_truth_frame(replicate_index):
+    from flawmix import likelihood as lik
+    from flawmix.simulate import Design, replicate, simulate
+
+    rng = np.random.default_rng(0)
+    sims = simulate(lik.Model("partial", 2, 0), [5.0, 15.0], [430.0, 400.0], [0.5, 0.5], Design.simple(40, 0.2), 25, rng)
+    d = replicate(sims, replicate_index)
+    origin = np.where(d.candidates.sum(-1) > 1, "?", np.array(["a", "b"])[d.candidates.argmax(-1)])
+    return pd.DataFrame({"strength": np.exp(d.y), "origin": np.where(d.failed, origin, "")})
+
+
+def test_partial_model_with_several_local_maxima_reports_an_unlocatable_end_as_unbounded():
+    # replicate 15 of this seeded campaign made brentq raise "f(a) and f(b) must have
+    # different signs" inside the profile (the inner maximisation found two maxima)
+    with pytest.warns(fm.FlawmixWarning, match="profile-likelihood bound"):
+        r = fm.fit(_partial_truth_frame(15), model="partial")
+    ends = [x for p in r.populations for x in (*p.modulus_interval, *p.strength_interval)]
+    assert any(np.isinf(ends))
+    assert any("profile-likelihood bound" in w for w in r.warnings)
+    d = r.to_dict()
+    assert None in [x for p in d["populations"] for x in p["modulus_interval"] + p["strength_interval"]]
+
+
+def test_population_without_a_certain_failure_gets_intervals_not_a_crash():
+    rng = np.random.default_rng(41)
+    frame = simulate_campaign(rng, n=30, unknown=0.3)
+    labels = frame["origin"].to_numpy().copy()
+    labels[labels == "machining"] = "?"          # every machining failure unidentified
+    frame["origin"] = labels
+    frame.loc[len(frame)] = [frame["strength"].max() * 1.01, "machining|pore", "failed"]
+    with pytest.warns(fm.FlawmixWarning):
+        r = fm.fit(frame)
+    p = r.population("machining")
+    assert p.n_failures == 0
+    lo, hi = p.modulus_interval
+    assert lo <= p.modulus <= hi
