@@ -13,6 +13,7 @@ import warnings as _warnings
 import numpy as np
 
 from . import _arviz
+from . import diagnostics
 from . import likelihood as lik
 from .errors import FlawmixError, FlawmixWarning
 from .mle import _centred_data, fit_mle
@@ -149,7 +150,7 @@ def fit_bayes(
             # drop the first fifth as further warm-up before judging
             kept = chain[steps // 5:]
             post = {nm: kept[:, :, i].T for i, nm in enumerate(names_params)}
-            diag = _arviz.convergence(post)
+            diag = diagnostics.convergence(post)   # numpy; arviz's xarray path cost more than sampling
             if progress:
                 print(f"sampling: {steps} steps, R-hat max {diag['r_hat_max']:.4f} (target {R_HAT_TARGET}), "
                       f"bulk ESS min {diag['ess_bulk_min']:.0f} (target {target_ess:.0f})", file=sys.stderr, flush=True)

@@ -54,7 +54,7 @@ def censored_weibull_mle(log_strength, failure_weight, *, tol: float = 1e-12, ma
         if not active.any():
             break
         ua = u[active]
-        xa = x[active]
+        xa = x if active.all() else x[active]   # no copy of big data while every set iterates
         m = np.exp(ua)
         e = np.exp(m[..., None] * xa)
         s0 = e.sum(axis=-1)

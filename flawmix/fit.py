@@ -1,9 +1,12 @@
 """``flawmix.fit``: one entry point that dispatches to the estimator asked for."""
 from __future__ import annotations
 
+from typing import TYPE_CHECKING
+
 from .errors import FlawmixError
-from .result import FitResult
-from .specimens import Specimens, read_specimens
+
+if TYPE_CHECKING:   # imported where used, so `import flawmix` stays light (PEP 562 in __init__)
+    from .result import FitResult
 
 METHODS = ("mle", "bayes")
 MODELS = ("concurrent", "exclusive", "partial")
@@ -56,6 +59,8 @@ def fit(
         geometries: ``{name: Geometry or study-file table}`` when the table has a ``geometry``
             column (specimens of several sizes or shapes, fitted together).
     """
+    from .specimens import Specimens, read_specimens
+
     if not isinstance(specimens, Specimens):
         specimens = read_specimens(specimens, **read_options)
     elif read_options:

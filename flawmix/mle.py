@@ -17,13 +17,12 @@ from .censored import censored_weibull_mle, weibull_regression
 from .errors import FlawmixError, FlawmixWarning
 from .evidence import verdict_sentence
 from .optimize import newton_maximise, profile_interval, wald_interval
-from .pivots import complete_sample_pivots, ross_unbiasing_factor
-from .positions import adjusted_ranks, plotting_positions, position_rule
+from .pivots import pivot_quantiles
+from .positions import adjusted_ranks, plotting_positions, position_rule, strength_order
 from .result import FitResult, HypothesisTest, PopulationEstimate
 from .specimens import Specimens, check_estimable
 
 PROFILE_MAX_SPECIMENS = 20_000   # above this, profile and Wald intervals agree to print precision
-PIVOT_MAX_SPECIMENS = 5_000      # above this, the pivots are taken as their normal limits
 
 
 def _centred_data(specimens: Specimens) -> tuple[lik.Data, float]:
@@ -90,17 +89,21 @@ def common_modulus_tie(k: int) -> np.ndarray:
     return J
 
 
-def _regression(specimens: Specimens, j: int, rule: str):
-    mine = specimens.failed & specimens.candidates[:, j] & (specimens.n_candidates == 1)
+def _regression(specimens: Specimens, j: int, rule: str, single=None, order=None):
+    """``single`` (failures with one candidate) and ``order`` (strength_order) may be passed
+    in to share them between populations (one sort for big data, not one per population)."""
+    if single is None:
+        single = specimens.failed & (specimens.n_candidates == 1)
+    mine = single & specimens.candidates[:, j]
     if mine.sum() < 2:
         return None, None
     n = specimens.n_specimens
     if mine.all():
-        order = np.argsort(specimens.strength)
+        order = np.argsort(specimens.strength) if order is None else order
         ranks = np.arange(1, n + 1)
         idx = order
     else:
-        idx, ranks = adjusted_ranks(specimens.strength, mine)
+        idx, ranks = adjusted_ranks(specimens.strength, mine, order)
     p = plotting_positions(ranks, n, rule)
     return weibull_regression(np.log(specimens.strength[idx]), p)
 
@@ -120,14 +123,9 @@ def _interval_method(intervals: str, specimens: Specimens, complete_single: bool
 
 def _pivotal_bounds(n, m_hat, log_scale, confidence):
     lo_p, hi_p = (1 - confidence) / 2, (1 + confidence) / 2
-    if n <= PIVOT_MAX_SPECIMENS:
-        piv = complete_sample_pivots(n)
-        q_lo, q_hi = piv.modulus_quantile(lo_p), piv.modulus_quantile(hi_p)
-        t_lo, t_hi = piv.scale_quantile(lo_p), piv.scale_quantile(hi_p)
-    else:  # asymptotic variances of the Weibull MLE: 6/π² and 1 + 6(1−γ)²/π², over N
-        z = _sstats.norm.ppf(hi_p)
-        q_lo, q_hi = 1 - z * np.sqrt(0.6079 / n), 1 + z * np.sqrt(0.6079 / n)
-        t_lo, t_hi = -z * np.sqrt(1.1087 / n), z * np.sqrt(1.1087 / n)
+    piv = pivot_quantiles(n, (lo_p, hi_p))   # shipped Monte Carlo table (pivots.py)
+    q_lo, q_hi = piv.modulus_quantile(lo_p), piv.modulus_quantile(hi_p)
+    t_lo, t_hi = piv.scale_quantile(lo_p), piv.scale_quantile(hi_p)
     return ((m_hat / q_hi, m_hat / q_lo),
             (np.exp(log_scale - t_hi / m_hat), np.exp(log_scale - t_lo / m_hat)))
 
@@ -274,7 +272,7 @@ def fit_mle(
     m_hat = np.exp(u)
     unbiased = [None] * k
     if complete_single:
-        uf = complete_sample_pivots(n).unbiasing_factor if n <= PIVOT_MAX_SPECIMENS else ross_unbiasing_factor(n)
+        uf = pivot_quantiles(n).unbiasing_factor
         unbiased[0] = float(m_hat[0] * uf)
     mod_int, str_int, frac_int = [], [], [None] * k
 
@@ -316,8 +314,9 @@ def fit_mle(
     certain = specimens.certain_failures()
     possible = specimens.possible_failures()
     pops = []
+    single, order = specimens.failed & (specimens.n_candidates == 1), strength_order(specimens.strength)
     for j, pop in enumerate(specimens.populations):
-        rm, rs = _regression(specimens, j, positions) if sized is None else (None, None)
+        rm, rs = _regression(specimens, j, positions, single, order) if sized is None else (None, None)
         pops.append(PopulationEstimate(
             name=pop.name, kind=pop.kind, n_failures=int(certain[j]), n_possible=int(possible[j]),
             expected_failures=float(expected[j]), modulus=float(m_hat[j]),

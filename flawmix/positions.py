@@ -28,20 +28,36 @@ def plotting_positions(ranks, n: int, rule: str = "hazen") -> np.ndarray:
     return (np.asarray(ranks, dtype=float) - a) / (n + b)
 
 
-def adjusted_ranks(strength, is_failure) -> tuple[np.ndarray, np.ndarray]:
+def strength_order(strength) -> np.ndarray:
+    """Stable ascending order of the strengths: sort once, rank many populations with it."""
+    return np.argsort(np.asarray(strength, dtype=float), kind="stable")
+
+
+def adjusted_ranks(strength, is_failure, order=None) -> tuple[np.ndarray, np.ndarray]:
     """Johnson's adjusted ranks of the failures of one population.
 
     All N specimens are sorted by strength (at ties, failures first); the reverse rank k
     is N for the weakest; at each failure i_j = i_{j−1} + (N + 1 − i_{j−1})/(1 + k_j).
-    Returns (indices of the failures in input order of rising strength, their ranks).
+    ``order``: :func:`strength_order` of the same strengths, to share one sort between
+    populations (big data). Returns (indices of the failures in input order of rising
+    strength, their ranks).
     """
     s = np.asarray(strength, dtype=float)
     f = np.asarray(is_failure, dtype=bool)
     n = s.size
-    order = np.lexsort((~f, s))          # by strength, failures before suspensions at ties
-    reverse = n - np.arange(n)           # N for the weakest
-    f_sorted = f[order]
+    if order is None:
+        order = strength_order(s)
+    s_sorted, f_sorted = s[order], f[order]
+    # at ties the failures come first: a failure's sorted position is the start of its
+    # group of equal strengths plus the number of failures before it in that group
+    first = np.empty(n, bool)
+    first[:1] = True
+    np.not_equal(s_sorted[1:], s_sorted[:-1], out=first[1:])
+    group_start = np.flatnonzero(first)[np.cumsum(first) - 1]
+    failures_before = np.concatenate([[0], np.cumsum(f_sorted)])
+    where = np.flatnonzero(f_sorted)
+    position = group_start[where] + (failures_before[where] - failures_before[group_start[where]])
     # i_j = i_{j-1} + (N + 1 - i_{j-1})/(1 + k_j)  <=>  N + 1 - i_j = (N + 1 - i_{j-1}) k_j/(1 + k_j)
-    k = reverse[f_sorted].astype(float)
+    k = (n - position).astype(float)   # reverse rank: N for the weakest
     ranks = (n + 1) * (1.0 - np.exp(np.cumsum(np.log(k / (k + 1.0)))))
-    return order[f_sorted], ranks
+    return order[where], ranks

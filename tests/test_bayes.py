@@ -162,3 +162,31 @@ def test_multi_population_credible_intervals_cover(model):
             hits[2 * j + 1] += p.strength_interval[0] < S[j] < p.strength_interval[1]
     # weak priors: coverage about nominal (3 binomial standard deviations)
     assert np.all(np.abs(hits / reps - 0.9) < 3 * np.sqrt(0.09 / reps) + 0.02)
+
+
+def _chains(rng, chains, draws, phi, repeat):
+    """AR(1) chains with some states repeated (as rejected MCMC proposals repeat them)."""
+    x = np.zeros((chains, draws))
+    noise = rng.standard_normal((chains, draws))
+    stay = rng.random((chains, draws)) < repeat
+    for t in range(1, draws):
+        x[:, t] = np.where(stay[:, t], x[:, t - 1], phi * x[:, t - 1] + noise[:, t])
+    return x
+
+
+@pytest.mark.parametrize("phi, repeat, shift", [(0.0, 0.0, 0.0), (0.6, 0.4, 0.0), (0.95, 0.2, 0.3)])
+def test_own_diagnostics_equal_arviz(phi, repeat, shift):
+    # Reference: arviz (rank-normalised split R-hat, bulk and tail ESS; Pareto k of PSIS) on
+    # the same draws; flawmix computes them in numpy to skip xarray in the sampling loop.
+    from flawmix import _arviz, diagnostics
+
+    az = _arviz._az()
+    rng = np.random.default_rng(int(phi * 100))
+    x = _chains(rng, 16, 301, phi, repeat)
+    x[:4] += shift                      # a few chains elsewhere: R-hat well above 1
+    data = az.convert_to_dataset({"a": x})
+    assert diagnostics.r_hat(x) == pytest.approx(float(az.rhat(data)["a"]), rel=1e-10)
+    assert diagnostics.ess_bulk(x) == pytest.approx(float(az.ess(data, method="bulk")["a"]), rel=1e-10)
+    assert diagnostics.ess_tail(x) == pytest.approx(float(az.ess(data, method="tail")["a"]), rel=1e-10)
+    log_weights = rng.standard_t(2 + 10 * phi, 3000)
+    assert diagnostics.pareto_k(log_weights) == pytest.approx(float(az.psislw(log_weights)[1]), rel=1e-10)

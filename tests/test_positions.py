@@ -41,3 +41,33 @@ def test_regression_estimate_matches_scipy_linregress():
     fit = stats.linregress(np.log(s), np.log(-np.log(1 - p)))
     assert r.populations[0].regression_modulus == pytest.approx(fit.slope, rel=1e-10)
     assert r.populations[0].regression_strength == pytest.approx(np.exp(-fit.intercept / fit.slope), rel=1e-10)
+
+
+def _adjusted_ranks_by_hand(strength, failed):
+    # Johnson's recursion written out specimen by specimen (DOMAIN.md section 3): sort by
+    # strength, failures before suspensions at ties (then input order), reverse rank k = N for
+    # the weakest, i_j = i_{j-1} + (N + 1 - i_{j-1}) / (1 + k) at each failure.
+    n = len(strength)
+    order = sorted(range(n), key=lambda i: (strength[i], not failed[i], i))
+    previous, out_idx, out_rank = 0.0, [], []
+    for position, i in enumerate(order):
+        if failed[i]:
+            previous += (n + 1 - previous) / (1 + (n - position))
+            out_idx.append(i)
+            out_rank.append(previous)
+    return np.array(out_idx, int), np.array(out_rank)
+
+
+def test_adjusted_ranks_with_ties_and_a_shared_sort_match_the_recursion_by_hand():
+    from flawmix.positions import strength_order
+
+    rng = np.random.default_rng(12)
+    for trial in range(200):
+        n = int(rng.integers(1, 40))
+        s = rng.integers(1, 6, n).astype(float) if trial % 2 else rng.random(n)   # many ties, or none
+        f = rng.random(n) < rng.random()
+        expected_idx, expected_rank = _adjusted_ranks_by_hand(list(s), list(f))
+        for order in (None, strength_order(s)):
+            idx, ranks = adjusted_ranks(s, f, order)
+            np.testing.assert_array_equal(idx, expected_idx)
+            np.testing.assert_allclose(ranks, expected_rank, rtol=1e-12)

@@ -1,0 +1,56 @@
+"""Start-up: commands that need no sampler or figures import none of emcee, arviz, matplotlib.
+
+Each command runs in a fresh interpreter (a subprocess), since this test session itself has
+imported everything; the check reads that interpreter's ``sys.modules``.
+"""
+import json
+import subprocess
+import sys
+from pathlib import Path
+
+import pytest
+
+ROOT = Path(__file__).resolve().parents[1]
+DEMO = ROOT / "flawmix" / "data" / "seal_rings.csv"
+HEAVY = ("arviz", "emcee", "matplotlib", "xarray")
+
+_PROBE = """
+import contextlib, io, json, sys
+from flawmix.cli import main
+with contextlib.redirect_stdout(io.StringIO()):
+    try:
+        main(json.loads(sys.argv[1]))
+    except SystemExit:
+        pass
+print(json.dumps(sorted(m for m in sys.modules if m.split('.')[0] in {heavy})))
+""".replace("{heavy}", repr(set(HEAVY + ("pandas", "scipy"))))
+
+
+def _imported(argv) -> set[str]:
+    out = subprocess.run([sys.executable, "-c", _PROBE, json.dumps([str(a) for a in argv])], cwd=ROOT,
+                         capture_output=True, text=True, check=True, timeout=120)
+    return {m.split(".")[0] for m in json.loads(out.stdout.strip().splitlines()[-1])}
+
+
+LIGHT = set(HEAVY)                        # an MLE fit or an effective size needs no sampler or figures
+BARE = set(HEAVY) | {"pandas", "scipy"}   # help text needs nothing numerical
+
+
+@pytest.mark.parametrize("argv, absent", [
+    (["fit", DEMO, "--json"], LIGHT),
+    (["size", "flexure-4pt", "--width", "4", "--depth", "3", "--outer-span", "40", "--inner-span", "20",
+      "--modulus", "10", "--json"], LIGHT),
+    (["plan", "--help"], BARE),
+    (["--help"], BARE),
+], ids=["fit", "size", "plan-help", "help"])
+def test_command_imports_only_what_it_needs(argv, absent):
+    assert not _imported(argv) & absent
+
+
+def test_package_names_load_on_first_use():
+    code = ("import sys, flawmix as fm; light = 'pandas' not in sys.modules; "
+            f"r = fm.fit(fm.read_specimens({str(DEMO)!r})); "
+            "print(light, type(r).__name__, fm.fit.__module__, fm.FitResult.__name__, callable(fm.compare.compare))")
+    out = subprocess.run([sys.executable, "-c", code], cwd=ROOT, capture_output=True, text=True, check=True,
+                         timeout=120)
+    assert out.stdout.split() == ["True", "FitResult", "flawmix.fit", "FitResult", "True"]
