@@ -235,7 +235,9 @@ def cmd_plan(args) -> int:
         target = Path(args.plot)
         if target.exists() and not args.force:
             raise FlawmixError(f"{target}: already exists; choose another --plot file or add --force")
-        plots.plan_plot(result).figure.savefig(target, dpi=130, bbox_inches="tight")
+        from .fonts import save
+
+        save(plots.plan_plot(result).figure, target, dpi=130, bbox_inches="tight")
     return _emit(args, result)
 
 

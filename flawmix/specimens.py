@@ -71,7 +71,7 @@ class Specimens:
             that label.
         origin_map: one entry per distinct origin as written: how it was read (``label``,
             ``uncertain``, ``ambiguous``, ``unidentified``), the populations it maps to and the
-            failures that carry it; see :meth:`origin_table`.
+            failures that carry it (one last entry counts the survivors); see :meth:`origin_table`.
         accounting: every row read: how many were used and each one excluded, with the reason.
         warnings: doubts found while reading (labels that look alike, an implausible unit).
     """
@@ -156,7 +156,7 @@ class Specimens:
 
     def origin_table(self) -> pd.DataFrame:
         """Origin as written -> how it was read and the population(s) it maps to, with counts."""
-        columns = ["origin as written", "read as", "population", "failures"]
+        columns = ["origin as written", "read as", "population", "specimens"]
         return pd.DataFrame(list(self.origin_map), columns=columns)
 
     def to_frame(self) -> pd.DataFrame:
@@ -521,7 +521,7 @@ def _map_origins(table: RawTable, rows: dict, pops, vocabulary: OriginVocabulary
         target = "any (unidentified)" if r.decision == "unidentified" else \
             " or ".join(n for n, c in zip(names, per_origin[u]) if c)
         origin_map.append({"origin as written": r.written if r.written.strip() else "(empty)",
-                           "read as": r.decision, "population": target, "failures": int(counts[u])})
+                           "read as": r.decision, "population": target, "specimens": int(counts[u])})
     if unmatched:
         listing = "; ".join(f"'{lab}' ({table.position(i)})" for lab, i in unmatched.items())
         raise FlawmixError(f"{where(table.source, column='origin')}origin label(s) not in any population: {listing}; "
@@ -529,7 +529,7 @@ def _map_origins(table: RawTable, rows: dict, pops, vocabulary: OriginVocabulary
     survivors = int((~failed).sum())
     if survivors:
         origin_map.append({"origin as written": "(survived)", "read as": "survivor", "population": "—",
-                           "failures": 0, "specimens": survivors})
+                           "specimens": survivors})
     origin_map.sort(key=lambda e: (e["read as"] == "survivor", e["population"], e["origin as written"]))
     candidates = per_origin[codes] & failed[:, None] if len(codes) else np.zeros((0, len(pops)), dtype=bool)
     return candidates, pops, {"unidentified": decision[codes] == "unidentified" if len(codes) else np.zeros(0, bool),
