@@ -26,7 +26,18 @@ def _add_grouping(p: argparse.ArgumentParser) -> None:
     p.add_argument("--group", metavar="NAME[:KIND]=LABELS", action="append", default=[],
                    help="group origin labels into a population, e.g. pores:volume=pore,agglomerate "
                         "(repeat per population; overrides the study file's populations)")
-    p.add_argument("--unit", help="stress unit of the strength column: Pa, kPa, MPa (default), GPa, psi, ksi")
+    p.add_argument("--unit", help="stress unit of the strength column: Pa, kPa, MPa, GPa, psi, ksi "
+                                  "(default: the unit in its header, else MPa)")
+    p.add_argument("--sheet", metavar="NAME|INDEX", help="Excel: the sheet with the specimens (default the first)")
+    p.add_argument("--unidentified-word", metavar="WORD", action="append", default=[],
+                   help="another word your lab writes for 'origin not identified' (repeat); n.d., unknown, ?, "
+                        "none, - and empty are built in")
+    p.add_argument("--origin-separator", metavar="SEP", action="append", default=[],
+                   help="what separates the alternatives of an ambiguous origin (repeat; replaces the default "
+                        "'|', '/' and ' or ')")
+    p.add_argument("--uncertain-origins", choices=["count", "unidentified"],
+                   help="an origin with a trailing '?' (inclusion?): count it as that label (default) or treat it "
+                        "as unidentified")
 
 
 def _table_command(sub, name: str, help: str, specimens_help: str) -> argparse.ArgumentParser:
@@ -69,8 +80,12 @@ def _load(args):
     path = getattr(args, "specimens", None) or study.specimens
     if path is None:
         raise FlawmixError("no specimen table given; name a .csv/.xlsx file or set 'specimens' in the study file")
-    unit = args.unit or study.unit or "MPa"
-    specimens = read_specimens(path, populations, unit)
+    specimens = read_specimens(
+        path, populations, args.unit or study.unit,
+        sheet=getattr(args, "sheet", None) if getattr(args, "sheet", None) is not None else study.sheet,
+        unidentified_words=[*study.unidentified_words, *getattr(args, "unidentified_word", [])],
+        origin_separators=getattr(args, "origin_separator", None) or study.origin_separators,
+        uncertain_origins=getattr(args, "uncertain_origins", None) or study.uncertain_origins or "count")
     return study, specimens
 
 
@@ -220,7 +235,9 @@ def cmd_plan(args) -> int:
         target = Path(args.plot)
         if target.exists() and not args.force:
             raise FlawmixError(f"{target}: already exists; choose another --plot file or add --force")
-        plots.plan_plot(result).figure.savefig(target, dpi=130, bbox_inches="tight")
+        from .fonts import save
+
+        save(plots.plan_plot(result).figure, target, dpi=130, bbox_inches="tight")
     return _emit(args, result)
 
 

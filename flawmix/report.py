@@ -105,9 +105,11 @@ class _Figures:
     def add(self, name: str, fig, caption: str) -> str:
         import matplotlib.pyplot as plt
 
-        fig.savefig(self.folder / f"{name}.svg", bbox_inches="tight")
+        from .fonts import save
+
+        save(fig, self.folder / f"{name}.svg", bbox_inches="tight")
         buf = io.BytesIO()
-        fig.savefig(buf, format="png", dpi=130, bbox_inches="tight")
+        save(fig, buf, format="png", dpi=130, bbox_inches="tight")
         (self.folder / f"{name}.png").write_bytes(buf.getvalue())
         plt.close(fig)
         data = base64.b64encode(buf.getvalue()).decode("ascii")
@@ -139,12 +141,28 @@ def _prepare_folder(out: Path, force: bool) -> Path:
         # --force replaces earlier reports only: never wipe a folder of other files
         raise FlawmixError(f"{out}: exists and is not a flawmix report folder; choose another --out "
                            "(--force only replaces an earlier report)")
-    out.parent.mkdir(parents=True, exist_ok=True)
-    tmp = Path(tempfile.mkdtemp(prefix=f".{out.name}.", dir=out.parent))
+    _check_place(out)
+    try:
+        out.parent.mkdir(parents=True, exist_ok=True)
+        tmp = Path(tempfile.mkdtemp(prefix=f".{out.name}.", dir=out.parent))
+    except OSError as exc:
+        raise FlawmixError(f"{out}: cannot create the report folder there ({exc.strerror or exc}); "
+                           "choose a writable --out") from None
     umask = os.umask(0)
     os.umask(umask)
     os.chmod(tmp, 0o777 & ~umask)   # mkdtemp makes it private; a report folder is ordinary
     return tmp
+
+
+def _check_place(out: Path) -> None:
+    """--out must lie below folders: name the plain file in the way, if any."""
+    for parent in out.parents:
+        if parent.exists():
+            if not parent.is_dir():
+                raise FlawmixError(f"{out}: '{parent}' is a file, not a folder; choose another --out")
+            if not os.access(parent, os.W_OK):
+                raise FlawmixError(f"{out}: no permission to write in '{parent}'; choose a writable --out")
+            return
 
 
 def _commit_folder(tmp: Path, out: Path) -> None:
@@ -215,12 +233,13 @@ def write_report(
         body.append(f"<p>Input: <code>{_esc(Path(src).name if specimens.source else src)}</code>"
                     + (f", SHA-256 <code>{_esc(specimens.checksum)}</code>" if specimens.checksum else "")
                     + f". Stress unit: {_esc(specimens.unit)}.</p>")
-        counts = _origin_counts(specimens)
+        counts = specimens.origin_table() if specimens.origin_map else _origin_counts(specimens)
         counts.to_csv(tmp / "tables" / "origins.csv", index=False)
         body.append(f"<p>{specimens.n_specimens} specimens: {specimens.n_failed} failed "
                     f"({specimens.n_unidentified} with the origin unidentified, {specimens.n_ambiguous} ambiguous), "
                     f"{specimens.n_survived} survived.</p>")
-        body.append(_table(counts, index=False))
+        body.append(_accounting_html(specimens))
+        body.append("<p>Origin as written → how it was read → population:</p>" + _table(counts, index=False))
 
         # 2. probability plot
         body.append("<h2>2. Probability plot</h2>")
@@ -365,7 +384,11 @@ def write_report(
         (tmp / "results.json").write_text(json.dumps(results, indent=2, ensure_ascii=False, default=_json_default),
                                           encoding="utf-8")
         _commit_folder(tmp, out)
-    except BaseException:
+    except OSError as exc:      # disk full, folder removed meanwhile...: nothing partial is left
+        shutil.rmtree(tmp, ignore_errors=True)
+        raise FlawmixError(f"{out}: writing the report failed ({exc.strerror or exc}); nothing was written; "
+                           "check free space and permissions") from None
+    except BaseException:       # errors and Ctrl-C alike: nothing partial is left
         shutil.rmtree(tmp, ignore_errors=True)
         raise
     return out
@@ -387,6 +410,17 @@ def _crossovers(result):
     from .predict import crossovers
 
     return crossovers(result.moduli, result.characteristic_strengths, [p.name for p in result.populations])
+
+
+def _accounting_html(specimens) -> str:
+    """Rows read, used and excluded (each excluded row with its reason)."""
+    acc = specimens.accounting
+    if not acc:
+        return ""
+    text = f"<p>Rows read: {acc['rows_read']}; used: {acc['used']}; excluded: {acc['excluded']}.</p>"
+    if acc["excluded_rows"]:
+        text += _table(pd.DataFrame(acc["excluded_rows"]).fillna("—"), index=False)
+    return text
 
 
 def _origin_counts(specimens) -> pd.DataFrame:

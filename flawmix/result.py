@@ -378,6 +378,7 @@ class FitResult:
             "partial_population": self.partial_population,
             **({"priors": list(self.priors)} if self.priors else {}),
             **{k: v for k, v in self.extras.items() if isinstance(v, (dict, list, str, int, float, type(None)))},
+            **({"accounting": _accounting(self.specimens)} if self.specimens is not None else {}),
         }
 
     def __str__(self) -> str:
@@ -457,3 +458,13 @@ def format_result(r: FitResult) -> str:
     for w in r.warnings:
         lines.append(f"warning: {w}")
     return "\n".join(lines)
+
+
+def _accounting(specimens) -> dict:
+    """Every row of the input: used or excluded with the reason, and how each origin as written
+    was read (see :meth:`flawmix.Specimens.origin_table`)."""
+    own = getattr(specimens, "accounting", None) or {   # built from arrays: nothing was excluded
+        "rows_read": specimens.n_specimens, "used": specimens.n_specimens, "failed": specimens.n_failed,
+        "survived": specimens.n_survived, "excluded": 0, "excluded_rows": [],
+        "origins": {"unidentified": specimens.n_unidentified, "uncertain": 0}}
+    return {**own, "origins_as_written": [dict(e) for e in getattr(specimens, "origin_map", ())]}

@@ -5,27 +5,28 @@ failed, and for each failure the set of populations that could have caused it.
 """
 from __future__ import annotations
 
-import hashlib
-import re
+import difflib
 from dataclasses import dataclass, field
-from pathlib import Path
 from typing import Mapping
 
 import numpy as np
 import pandas as pd
 
 from .errors import FlawmixError, where
-from .units import stress_unit
+from .origins import UNIDENTIFIED_WORDS, OriginVocabulary, label_advice, normalise_label, read_origin
+from .tables import RawTable, read_table
+from .units import plausibility_warning, split_header_unit, stress_unit
 
 FLAW_KINDS = ("volume", "surface", "edge", "unspecified")
-UNKNOWN_LABELS = {"", "?", "unknown", "unidentified", "nan"}
+UNKNOWN_LABELS = set(UNIDENTIFIED_WORDS)
 FAILED_WORDS = {"", "failed", "fail", "f", "failure", "fractured", "broken", "nan"}
 SURVIVED_WORDS = {"survived", "survivor", "s", "runout", "run-out", "censored", "suspended"}
-
-
-def normalise_label(text: str) -> str:
-    """Labels match ignoring case and runs of white space: ' Machining  Damage' == 'machining damage'."""
-    return re.sub(r"\s+", " ", str(text)).strip().lower()
+# Rows a lab marks as not a valid test (broke at a load point, wrong fixture...): read, kept
+# out of the fit, and listed with the reason in the accounting.
+EXCLUDED_WORDS = {"excluded", "exclude", "invalid", "void", "discarded"}
+STRENGTH_NAMES = {"strength", "σf", "σ_f", "sigma_f", "fracture strength", "fracture stress", "failure stress"}
+COLUMNS = ("strength", "specimen", "origin", "status", "geometry")
+POPULATION_SETTINGS = ("kind", "labels", "prior")
 
 
 @dataclass(frozen=True)
@@ -66,6 +67,13 @@ class Specimens:
         geometry: (N,) name of each specimen's test geometry, or None.
         unidentified: (N,) True where a failure's origin was written as unknown
             (None: every failure with all populations as candidates counts).
+        uncertain: (N,) True where the origin was written with a trailing '?' and counted as
+            that label.
+        origin_map: one entry per distinct origin as written: how it was read (``label``,
+            ``uncertain``, ``ambiguous``, ``unidentified``), the populations it maps to and the
+            failures that carry it (one last entry counts the survivors); see :meth:`origin_table`.
+        accounting: every row read: how many were used and each one excluded, with the reason.
+        warnings: doubts found while reading (labels that look alike, an implausible unit).
     """
 
     strength: np.ndarray
@@ -80,6 +88,10 @@ class Specimens:
     checksum: str | None = None
     geometry: np.ndarray | None = None
     unidentified: np.ndarray | None = None
+    uncertain: np.ndarray | None = None
+    origin_map: tuple[dict, ...] = field(default=(), compare=False)
+    accounting: dict | None = field(default=None, compare=False)
+    warnings: tuple[str, ...] = field(default=(), compare=False)
 
     def __post_init__(self):
         for name in ("strength", "failed", "candidates"):
@@ -137,6 +149,16 @@ class Specimens:
 
         return _replace(self, strength=self.strength * stress_factor(self.unit, unit), unit=stress_unit(unit))
 
+    @property
+    def n_uncertain(self) -> int:
+        """Failures whose origin was written with a trailing '?' and counted as that label."""
+        return 0 if self.uncertain is None else int((self.uncertain & self.failed).sum())
+
+    def origin_table(self) -> pd.DataFrame:
+        """Origin as written -> how it was read and the population(s) it maps to, with counts."""
+        columns = ["origin as written", "read as", "population", "specimens"]
+        return pd.DataFrame(list(self.origin_map), columns=columns)
+
     def to_frame(self) -> pd.DataFrame:
         """One row per specimen with the parsed fields and the candidate populations."""
         names = self.population_names
@@ -169,14 +191,18 @@ def make_populations(groups) -> tuple[Population, ...] | None:
             if isinstance(spec, Population):
                 out.append(spec)
             elif isinstance(spec, Mapping):
-                unknown = set(spec) - {"kind", "labels", "prior"}
+                unknown = sorted(set(spec) - set(POPULATION_SETTINGS))
                 if unknown:
-                    raise FlawmixError(
-                        f"population '{name}': unknown setting(s) {', '.join(sorted(unknown))}; use 'kind' and 'labels'"
-                    )
+                    raise FlawmixError(f"population '{name}': unknown setting '{unknown[0]}'"
+                                       f"{suggest(unknown[0], POPULATION_SETTINGS)}; the settings are 'kind', "
+                                       "'labels' and 'prior'")
                 labels = spec.get("labels", [name])
                 if isinstance(labels, str):
                     labels = [labels]
+                if not isinstance(labels, (list, tuple)) or not labels or \
+                        not all(isinstance(x, str) and x.strip() for x in labels):
+                    raise FlawmixError(f"population '{name}': 'labels' must list its origin labels as text, e.g. "
+                                       "labels = [\"pore\", \"porous region\"]")
                 out.append(Population(str(name), spec.get("kind", "unspecified"), tuple(labels)))
             else:
                 raise FlawmixError(f"population '{name}': expected a table with 'kind' and 'labels'")
@@ -192,7 +218,7 @@ def make_populations(groups) -> tuple[Population, ...] | None:
             raise FlawmixError(f"population '{p.name}' is defined twice; give each population one entry")
         names.add(p.name)
         for lab in p.labels:
-            if lab in UNKNOWN_LABELS:
+            if OriginVocabulary().is_unidentified(lab):
                 raise FlawmixError(
                     f"population '{p.name}': label '{lab}' means 'unidentified' and cannot belong to a population"
                 )
@@ -204,197 +230,376 @@ def make_populations(groups) -> tuple[Population, ...] | None:
     return pops
 
 
+def suggest(word: str, choices) -> str:
+    """' (did you mean 'labels'?)' for a near miss, else ''."""
+    close = difflib.get_close_matches(str(word), list(choices), n=1, cutoff=0.6)
+    return f" (did you mean '{close[0]}'?)" if close else ""
+
+
 # ---- reading ---------------------------------------------------------------------------
-
-def _load_table(path_or_frame, sheet=None) -> tuple[pd.DataFrame, str | None, str, str | None]:
-    """Return (table as text, source name, row word, checksum)."""
-    if isinstance(path_or_frame, pd.DataFrame):
-        return path_or_frame.copy(), None, "dataframe", None
-    path = Path(path_or_frame)
-    if not path.exists():
-        raise FlawmixError(f"{path}: no such file; check the path")
-    if path.is_dir():
-        raise FlawmixError(f"{path}: is a folder; give the specimen table file (.csv or .xlsx)")
-    data = path.read_bytes()
-    checksum = hashlib.sha256(data).hexdigest()
-    suffix = path.suffix.lower()
-    if suffix in (".xlsx", ".xlsm"):
-        try:
-            import openpyxl  # noqa: F401
-        except ImportError:
-            raise FlawmixError(
-                f"{path}: reading Excel workbooks needs openpyxl; run: pip install 'flawmix[excel]'"
-            ) from None
-        try:
-            frame = pd.read_excel(path, sheet_name=sheet or 0, dtype=str, keep_default_na=False)
-        except Exception as exc:  # openpyxl raises many types for damaged files
-            raise FlawmixError(f"{path}: cannot read the workbook ({exc}); save it again as .xlsx or .csv") from None
-        return frame, str(path), "row", checksum
-    try:
-        frame = pd.read_csv(path, dtype=str, keep_default_na=False, skipinitialspace=True,
-                            comment=None, encoding="utf-8-sig")
-    except pd.errors.EmptyDataError:
-        raise FlawmixError(f"{path}: the file is empty; it needs a header line with at least 'strength'") from None
-    except (pd.errors.ParserError, UnicodeDecodeError) as exc:
-        raise FlawmixError(f"{path}: not a readable CSV table ({str(exc).splitlines()[0]}); save it as UTF-8 CSV") from None
-    return frame, str(path), "line", checksum
-
 
 def read_specimens(
     path_or_frame,
     populations=None,
-    unit: str = "MPa",
+    unit: str | None = None,
     *,
-    sheet: str | None = None,
+    sheet: str | int | None = None,
+    unidentified_words=(),
+    origin_separators=None,
+    uncertain_origins: str = "count",
 ) -> Specimens:
     """Read a specimen table and map its fracture origins to flaw populations.
 
     Args:
-        path_or_frame: a ``.csv`` or ``.xlsx`` path, or a pandas DataFrame. Columns:
-            ``strength`` (required), ``specimen``, ``origin``, ``status`` (``failed`` or
-            ``survived``), ``geometry`` (optional); other columns are kept.
+        path_or_frame: a ``.csv`` (comma, semicolon with decimal commas, or tab; UTF-8 or
+            UTF-16 with byte-order mark) or ``.xlsx`` path, or a pandas DataFrame. Columns:
+            ``strength`` (required; its header may carry the unit: ``Strength (MPa)``),
+            ``specimen``, ``origin``, ``status`` (``failed``, ``survived`` or ``excluded``),
+            ``geometry`` (optional); other columns are kept.
         populations: how origin labels group into populations: a mapping
             ``{name: {"kind": "volume", "labels": ["pore", ...]}}`` or a sequence of
             :class:`Population`. Without it each distinct label is its own population.
-        unit: stress unit of the ``strength`` column (Pa, kPa, MPa, GPa, psi, ksi).
+        unit: stress unit of the strength column (Pa, kPa, MPa, GPa, psi, ksi); default the
+            header's unit, else MPa. A unit that contradicts the header's is an error.
+        sheet: the workbook sheet, by name or number (0 = first).
+        unidentified_words: more words meaning "origin not identified" (besides ``n.d.``,
+            ``unknown``, ``?``, empty ...).
+        origin_separators: what separates the alternatives of an ambiguous origin
+            (default ``|``, ``/``, `` or ``).
+        uncertain_origins: ``count`` ("inclusion?" counts as inclusion, listed as uncertain)
+            or ``unidentified``.
 
-    Origins: empty, ``?`` or ``unknown`` means unidentified; ``a|b`` means a or b.
     Raises FlawmixError naming file, line and column for every problem found.
     """
-    unit = stress_unit(unit)
+    vocabulary = OriginVocabulary(tuple(unidentified_words or ()),
+                                  tuple(origin_separators) if origin_separators else OriginVocabulary.separators,
+                                  uncertain_origins)
+    unit = None if unit is None else stress_unit(unit)      # a misspelt unit is named before any file
     pops = make_populations(populations)
-    raw, source, row_word, checksum = _load_table(path_or_frame, sheet)
-    frame = raw.copy()
-    frame.columns = [normalise_label(c) for c in frame.columns]
-    dup_cols = frame.columns[frame.columns.duplicated()].tolist()
-    if dup_cols:
-        raise FlawmixError(f"{where(source)}column '{dup_cols[0]}' appears twice in the header; keep one")
-    if "strength" not in frame.columns:
-        raise FlawmixError(
-            f"{where(source)}no 'strength' column (found: {', '.join(map(str, frame.columns)) or 'none'}); "
-            "name the failure-stress column 'strength'"
-        )
-    if len(frame) == 0:
-        raise FlawmixError(f"{where(source)}the table has no specimens; add one row per specimen")
-
-    def loc(i: int) -> int | str:
-        if row_word == "dataframe":
-            return f"row index {frame.index[i]!r}"
-        return i + 2  # header is line 1
-
-    def at(i: int, column: str) -> str:
-        pos = loc(i)
-        if isinstance(pos, str):
-            return f"{source + ', ' if source else ''}{pos}, column '{column}': "
-        return f"{source}, {row_word} {pos}, column '{column}': "
-
-    # strength
-    text = frame["strength"].astype(str).str.strip()
-    strength = np.empty(len(frame))
-    for i, s in enumerate(text):
-        if s == "" or s.lower() in ("nan", "na", "none", "null"):
-            raise FlawmixError(f"{at(i, 'strength')}missing value; enter the failure stress (or withstood stress) in {unit}")
-        try:
-            value = float(s.replace("_", ""))
-        except ValueError:
-            raise FlawmixError(f"{at(i, 'strength')}'{s}' is not a number; write the stress as a plain number in {unit}") from None
-        if not np.isfinite(value):
-            raise FlawmixError(f"{at(i, 'strength')}'{s}' is not a finite number; enter the measured stress in {unit}")
-        if value <= 0:
-            raise FlawmixError(f"{at(i, 'strength')}{s} is not positive; strengths must be > 0 {unit}")
-        strength[i] = value
-
-    # status
-    failed = np.ones(len(frame), dtype=bool)
-    if "status" in frame.columns:
-        for i, s in enumerate(frame["status"].astype(str)):
-            w = normalise_label(s)
-            if w in FAILED_WORDS:
-                continue
-            if w in SURVIVED_WORDS:
-                failed[i] = False
-                continue
-            raise FlawmixError(f"{at(i, 'status')}unknown status '{s}'; write 'failed' or 'survived'")
-
-    # ids
-    if "specimen" in frame.columns:
-        ids = frame["specimen"].astype(str).str.strip().to_numpy()
-        seen: dict[str, int] = {}
-        for i, s in enumerate(ids):
-            if s == "":
-                raise FlawmixError(f"{at(i, 'specimen')}empty specimen id; give every specimen an id or drop the column")
-            if s in seen:
-                first = loc(seen[s])
-                raise FlawmixError(
-                    f"{at(i, 'specimen')}duplicate specimen id '{s}' (first at {row_word} {first}); make ids unique"
-                )
-            seen[s] = i
-    else:
-        ids = np.array([str(i + 1) for i in range(len(frame))], dtype=object)
-
-    # origins
-    origin = frame["origin"].astype(str).to_numpy() if "origin" in frame.columns else np.array([""] * len(frame), dtype=object)
-    parsed: list[list[str] | None] = []  # None = unidentified
-    for s in origin:
-        parts = [normalise_label(p) for p in str(s).split("|")]
-        if any(p in UNKNOWN_LABELS for p in parts):
-            parsed.append(None)
-        else:
-            parsed.append(parts)
-
-    if pops is None:
-        labels = sorted({p for i, parts in enumerate(parsed) if parts and failed[i] for p in parts})
-        if not labels:
-            pops = (Population("all", "unspecified", ("all",)),)
-        else:
-            pops = tuple(Population(lab, "unspecified", (lab,)) for lab in labels)
-    label_to_index = {lab: j for j, p in enumerate(pops) for lab in p.labels}
-
-    k = len(pops)
-    candidates = np.zeros((len(frame), k), dtype=bool)
-    unmatched: dict[str, int] = {}
-    for i, parts in enumerate(parsed):
-        if not failed[i]:
-            continue
-        if parts is None:
-            candidates[i, :] = True
-            continue
-        for p in parts:
-            j = label_to_index.get(p)
-            if j is None:
-                unmatched.setdefault(p, i)
-            else:
-                candidates[i, j] = True
-    if unmatched:
-        listing = "; ".join(f"'{lab}' ({row_word} {loc(i)})" for lab, i in unmatched.items())
-        raise FlawmixError(
-            f"{where(source, column='origin')}origin label(s) not in any population: {listing}; "
-            "add them to a population's labels or mark them unknown"
-        )
-
-    geometry = None
-    if "geometry" in frame.columns:
-        geometry = frame["geometry"].astype(str).str.strip().to_numpy()
-
+    table = read_table(path_or_frame, sheet)
+    columns, header_unit = _find_columns(table)
+    unit = _resolve_unit(table, columns, header_unit, unit)
+    rows = _validate_rows(table, columns, unit)
+    origin = rows["origin"]
+    candidates, pops, readings = _map_origins(table, rows, pops, vocabulary)
+    warnings = [*_origin_warnings(readings, rows, populations is None, vocabulary),
+                *plausibility_warning(rows["strength"], unit, table.source)]
+    used = rows["used"]
     return Specimens(
-        strength=strength,
-        failed=failed,
-        candidates=candidates,
-        populations=pops,
-        unit=unit,
-        ids=ids,
-        origin=origin,
-        table=raw,
-        source=source,
-        checksum=checksum,
-        geometry=geometry,
-        unidentified=np.array([p is None for p in parsed]) & failed,
+        strength=rows["strength"], failed=rows["failed"], candidates=candidates, populations=pops, unit=unit,
+        ids=rows["ids"], origin=origin, table=_pass_through(table, used), source=table.source,
+        checksum=table.checksum, geometry=rows["geometry"],
+        unidentified=readings["unidentified"] & rows["failed"], uncertain=readings["uncertain"] & rows["failed"],
+        origin_map=tuple(readings["map"]), accounting=_accounting(table, rows, readings),
+        warnings=tuple(warnings),
     )
 
 
+def _find_columns(table: RawTable) -> tuple[dict[str, int], str | None]:
+    """Which header cell holds each known column; the unit written in the strength header."""
+    where_header = f"{table.source + ', ' if table.source else ''}" + \
+        ("header" if table.row_word == "dataframe" else f"{table.row_word} {table.header_line} (the header)")
+    names, header_unit, seen = {}, None, {}
+    for j, cell in enumerate(table.header):
+        name, unit_text = split_header_unit(cell)
+        key = normalise_label(name)
+        if key in STRENGTH_NAMES:
+            key = "strength"
+            if unit_text is not None:
+                try:
+                    header_unit = stress_unit(unit_text)
+                except FlawmixError as exc:
+                    raise FlawmixError(f"{where_header}: column '{cell}': {exc}; or drop the unit from the header "
+                                       "and give --unit") from None
+        elif key != normalise_label(cell):
+            key = normalise_label(cell)           # units on other columns stay part of their name
+        if key == "":
+            filled = table.cells[j].fillna("").astype(str).str.strip() != ""
+            if filled.any():
+                first = int(np.flatnonzero(filled.to_numpy())[0])
+                raise FlawmixError(f"{table.at(first, f'#{j + 1}')}a value in column {j + 1}, which has no name in "
+                                   "the header; name the column or remove the value")
+            continue
+        if key in seen:
+            first = table.header[seen[key]]
+            raise FlawmixError(f"{where_header}: columns {seen[key] + 1} ('{first}') and {j + 1} ('{cell}') are both "
+                               f"'{key}'; rename or remove one of them")
+        seen[key] = j
+        if key in COLUMNS:
+            names[key] = j
+    if "strength" not in names:
+        found = ", ".join(c for c in table.header if c) or "none"
+        if table.sheets is not None and len(table.sheets) > 1:
+            from .tables import _sheet_listing
+            raise FlawmixError(f"{table.source}: no 'strength' column (found: {found}); sheets and their headers: "
+                               f"{_sheet_listing(table.sheets)}; choose the sheet with --sheet NAME (or 'sheet' in "
+                               "the study file)")
+        raise FlawmixError(f"{where(table.source)}no 'strength' column (found: {found}); name the failure-stress "
+                           "column 'strength' (a unit may follow: 'strength (MPa)')")
+    if len(table.cells) == 0 or table.blank.all():
+        raise FlawmixError(f"{where(table.source)}the table has no specimens; add one row per specimen")
+    return names, header_unit
+
+
+def _resolve_unit(table: RawTable, columns: dict, header_unit: str | None, unit: str | None) -> str:
+    if unit is None:
+        return header_unit or "MPa"
+    unit = stress_unit(unit)
+    if header_unit is not None and header_unit != unit:
+        cell = table.header[columns["strength"]]
+        raise FlawmixError(f"{where(table.source)}the header '{cell}' says {header_unit} but the unit {unit} was "
+                           "asked for (--unit or the study file's 'unit'); remove one of the two")
+    return unit
+
+
+def _column(table: RawTable, j: int, records: np.ndarray) -> np.ndarray:
+    """Raw cells of column j for the given records, as an object array."""
+    values = table.cells[j].to_numpy(dtype=object)
+    return values if records.size == values.size else values[records]
+
+
+def _text(table: RawTable, j: int | None, records: np.ndarray) -> np.ndarray:
+    """Column j of the given records as stripped text ('' where missing). A list comprehension:
+    several times faster than pandas' string methods on a million cells."""
+    if j is None:
+        return np.full(records.size, "", dtype=object)
+    out = np.empty(records.size, dtype=object)
+    out[:] = [v.strip() if type(v) is str else ("" if v is None or v != v else str(v).strip())
+              for v in _column(table, j, records)]
+    return out
+
+
+def _words(table: RawTable, j: int | None, records: np.ndarray) -> tuple[np.ndarray, list[str], list[str]]:
+    """Factorised column: codes (N,), the distinct cells as written (stripped) and normalised.
+    Matching is done once per distinct value: a million rows hold a handful of status words."""
+    if j is None:
+        return np.zeros(records.size, dtype=np.intp), [""], [""]
+    codes, uniques = pd.factorize(_column(table, j, records), use_na_sentinel=True)
+    written = [u.strip() if isinstance(u, str) else str(u).strip() for u in uniques]
+    if (codes < 0).any():                     # missing cells: one more distinct value, ''
+        codes = np.where(codes < 0, len(written), codes)
+        written.append("")
+    return codes, written, [normalise_label(w) for w in written]
+
+
+def _validate_rows(table: RawTable, columns: dict, unit: str) -> dict:
+    """Strength, status, ids and geometry of every record, vectorised; first problem raises."""
+    records = np.flatnonzero(~table.blank)
+    codes, _, words = _words(table, columns.get("status"), records)
+    kind = np.empty(len(words), dtype=object)
+    for u, w in enumerate(words):
+        if w in FAILED_WORDS:
+            kind[u] = "failed"
+        elif w in SURVIVED_WORDS:
+            kind[u] = "survived"
+        elif w in EXCLUDED_WORDS:
+            kind[u] = "excluded"
+        else:
+            i = int(records[np.flatnonzero(codes == u)[0]])
+            raise FlawmixError(f"{table.at(i, 'status')}unknown status '{table.cells[columns['status']].iloc[i]}'; "
+                               "write 'failed', 'survived' (run-out, censored) or 'excluded' (not a valid test)")
+    row_kind = kind[codes] if len(codes) else np.empty(0, dtype=object)
+    excluded = records[row_kind == "excluded"]
+    records = records[row_kind != "excluded"]
+    failed = (row_kind[row_kind != "excluded"] == "failed")
+    if records.size == 0:
+        raise FlawmixError(f"{where(table.source)}every row is excluded or blank; no specimens are left to fit")
+    strength = _strengths(table, columns["strength"], records, unit)
+    ids = _ids(table, columns.get("specimen"), records)
+    geometry = _text(table, columns["geometry"], records) if "geometry" in columns else None
+    origin_codes, origin_written, _ = _words(table, columns.get("origin"), records)
+    origin = np.asarray(origin_written, dtype=object)[origin_codes]
+    return {"origin_codes": origin_codes, "origin_written": origin_written, "records": records, "excluded": excluded, "strength": strength, "failed": failed, "ids": ids,
+            "geometry": geometry, "origin": origin, "used": records,
+            "excluded_ids": _text(table, columns.get("specimen"), excluded)}
+
+
+_MISSING = {"", "nan", "na", "n/a", "none", "null", "-"}
+
+
+def _strengths(table: RawTable, j: int, records: np.ndarray, unit: str) -> np.ndarray:
+    if pd.api.types.is_numeric_dtype(table.cells[j].dtype):
+        values = table.cells[j].to_numpy(dtype=float)[records]
+    else:
+        text = _column(table, j, records)
+        if table.delimiter not in (None, ","):       # decimal commas (semicolon and tab tables)
+            text = np.array([v.replace(",", ".") if type(v) is str else v for v in text], dtype=object)
+        values = pd.to_numeric(text, errors="coerce").astype(float)
+        for r in np.flatnonzero(np.isnan(values)):     # the few cells the fast path refused
+            try:
+                values[r] = float(str(text[r]).strip().replace("_", ""))
+            except ValueError:
+                pass
+    bad = ~(np.isfinite(values) & (values > 0))
+    if bad.any():
+        r = int(np.flatnonzero(bad)[0])
+        raise FlawmixError(table.at(int(records[r]), table.header[j]) +
+                           _strength_problem(table.cells[j].iloc[records[r]], values[r], unit, table.delimiter))
+    return values
+
+
+def _strength_problem(cell, value: float, unit: str, delimiter: str | None) -> str:
+    s = "" if cell is None or (isinstance(cell, float) and np.isnan(cell)) else str(cell).strip()
+    if s.lower() in _MISSING:
+        return f"missing value; enter the failure stress (or withstood stress) in {unit}, or mark the row excluded"
+    if np.isnan(value):
+        number, _, rest = s.partition(" ")
+        if rest and _is_number(number):
+            return (f"'{s}' is not a number; write the unit once in the header ('strength ({rest.strip()})' or "
+                    "--unit) and only numbers in the cells")
+        if "," in s and _is_number(s.replace(",", ".")):
+            return (f"'{s}' is not a number (a decimal comma?); write {s.replace(',', '.')}, or save the table "
+                    "with semicolons between cells so decimal commas are read")
+        return f"'{s}' is not a number; write the stress as a plain number in {unit}"
+    if not np.isfinite(value):
+        return f"'{s}' is not a finite number; enter the measured stress in {unit}"
+    return f"{s} is not positive; strengths must be > 0 {unit}"
+
+
+def _is_number(s: str) -> bool:
+    try:
+        float(s)
+        return True
+    except ValueError:
+        return False
+
+
+def _ids(table: RawTable, j: int | None, records: np.ndarray) -> np.ndarray:
+    if j is None:
+        return np.array([str(i + 1) for i in range(records.size)], dtype=object)
+    ids = _text(table, j, records)
+    empty = np.flatnonzero(ids == "")
+    if empty.size:
+        raise FlawmixError(f"{table.at(int(records[empty[0]]), table.header[j])}empty specimen id; give every "
+                           "specimen an id or drop the column")
+    duplicated = pd.Series(ids).duplicated().to_numpy()
+    if duplicated.any():
+        r = int(np.flatnonzero(duplicated)[0])
+        first = int(np.flatnonzero(ids == ids[r])[0])
+        raise FlawmixError(f"{table.at(int(records[r]), table.header[j])}duplicate specimen id '{ids[r]}' (first at "
+                           f"{table.position(int(records[first]))}); make ids unique")
+    return ids
+
+
+def _map_origins(table: RawTable, rows: dict, pops, vocabulary: OriginVocabulary):
+    """Candidates (N, k) from the origins as written; each distinct origin is read once."""
+    failed, records = rows["failed"], rows["records"]
+    codes, uniques = rows["origin_codes"], rows["origin_written"]
+    counts = np.bincount(codes[failed], minlength=len(uniques)) if len(uniques) else np.zeros(0, int)
+    readings = []
+    for u, text in enumerate(uniques):
+        try:
+            readings.append(read_origin(text, vocabulary))
+        except FlawmixError as exc:
+            if counts[u] == 0:        # a survivor's origin is not used
+                readings.append(None)
+                continue
+            raise FlawmixError(f"{table.at(int(records[np.flatnonzero(codes == u)[0]]), 'origin')}{exc}") from None
+    if pops is None:
+        labels = sorted({lab for r, c in zip(readings, counts) if r is not None and c and r.decision != "unidentified"
+                         for lab in r.labels})
+        pops = tuple(Population(lab, "unspecified", (lab,)) for lab in labels) or \
+            (Population("all", "unspecified", ("all",)),)
+    _check_user_words(pops, vocabulary)
+    index = {lab: j for j, p in enumerate(pops) for lab in p.labels}
+    names = [p.name for p in pops]
+    per_origin = np.zeros((len(uniques), len(pops)), dtype=bool)
+    decision = np.empty(len(uniques), dtype=object)
+    origin_map, unmatched = [], {}
+    for u, r in enumerate(readings):
+        if r is None or counts[u] == 0:
+            decision[u] = "survivor"
+            continue
+        decision[u] = r.decision
+        if r.decision == "unidentified":
+            per_origin[u] = True
+        for lab in (r.labels if r.decision != "unidentified" else ()):
+            if lab in index:
+                per_origin[u, index[lab]] = True
+            else:
+                unmatched.setdefault(lab, int(records[np.flatnonzero((codes == u) & failed)[0]]))
+        target = "any (unidentified)" if r.decision == "unidentified" else \
+            " or ".join(n for n, c in zip(names, per_origin[u]) if c)
+        origin_map.append({"origin as written": r.written if r.written.strip() else "(empty)",
+                           "read as": r.decision, "population": target, "specimens": int(counts[u])})
+    if unmatched:
+        listing = "; ".join(f"'{lab}' ({table.position(i)})" for lab, i in unmatched.items())
+        raise FlawmixError(f"{where(table.source, column='origin')}origin label(s) not in any population: {listing}; "
+                           "add them to a population's labels or mark them unknown")
+    survivors = int((~failed).sum())
+    if survivors:
+        origin_map.append({"origin as written": "(survived)", "read as": "survivor", "population": "—",
+                           "specimens": survivors})
+    origin_map.sort(key=lambda e: (e["read as"] == "survivor", e["population"], e["origin as written"]))
+    candidates = per_origin[codes] & failed[:, None] if len(codes) else np.zeros((0, len(pops)), dtype=bool)
+    return candidates, pops, {"unidentified": decision[codes] == "unidentified" if len(codes) else np.zeros(0, bool),
+                              "uncertain": decision[codes] == "uncertain" if len(codes) else np.zeros(0, bool),
+                              "map": origin_map, "readings": readings, "counts": counts}
+
+
+def _check_user_words(pops, vocabulary: OriginVocabulary) -> None:
+    for p in pops:
+        for lab in p.labels:
+            if vocabulary.is_unidentified(lab):
+                raise FlawmixError(f"population '{p.name}': label '{lab}' is one of the words for 'unidentified' "
+                                   "and cannot belong to a population; remove it from one of the two")
+
+
+def _origin_warnings(readings: dict, rows: dict, ungrouped: bool, vocabulary: OriginVocabulary) -> list[str]:
+    out = []
+    n_uncertain = int((readings["uncertain"] & rows["failed"]).sum())
+    if n_uncertain:
+        how = "counted as the label before the '?'" if vocabulary.uncertain == "count" else "treated as unidentified"
+        out.append(f"{n_uncertain} failure origin(s) written with a trailing '?' are uncertain and {how}; "
+                   "see the origin table (--uncertain-origins chooses)")
+    if not ungrouped:
+        return out
+    counts: dict[str, int] = {}
+    written: dict[str, str] = {}
+    for r, c in zip(readings["readings"], readings["counts"]):
+        if r is None or not c or r.decision == "unidentified":
+            continue
+        for lab in r.labels:
+            counts[lab] = counts.get(lab, 0) + int(c)
+            written.setdefault(lab, lab)
+    out.extend(label_advice(counts, written))
+    if len(counts) > 12:
+        out.append(f"{len(counts)} distinct origin labels, each fitted as its own population; group them into the "
+                   "few flaw types they stand for (--group or [populations] in the study file)")
+    return out
+
+
+def _pass_through(table: RawTable, records: np.ndarray) -> pd.DataFrame:
+    """The used rows with every column, under the header as written."""
+    frame = table.cells.iloc[records]
+    keep = [j for j, c in enumerate(table.header) if c or j < frame.shape[1] and frame[j].notna().any()]
+    frame = frame[keep]
+    frame.columns = [table.header[j] for j in keep]
+    return frame
+
+
+def _accounting(table: RawTable, rows: dict, readings: dict) -> dict:
+    """Every record read: used (failed or survived) or excluded, each excluded one with its reason."""
+    excluded = [{"where": table.position(int(i)), "specimen": None, "reason": "blank line" if table.row_word == "line"
+                 else "blank row"} for i in np.flatnonzero(table.blank)]
+    for i, sid in zip(rows["excluded"], rows["excluded_ids"]):
+        excluded.append({"where": table.position(int(i)), "specimen": sid or None,
+                         "reason": "status says excluded (not a valid test)"})
+    excluded.sort(key=lambda e: int(e["where"].split()[-1]) if e["where"].split()[-1].isdigit() else 0)
+    failed = rows["failed"]
+    unidentified = int((readings["unidentified"] & failed).sum())
+    return {
+        "rows_read": int(len(table.cells)),
+        "used": int(rows["records"].size),
+        "failed": int(failed.sum()),
+        "survived": int((~failed).sum()),
+        "excluded": len(excluded),
+        "excluded_rows": excluded,
+        "origins": {"unidentified": unidentified, "uncertain": int((readings["uncertain"] & failed).sum())},
+    }
 def check_estimable(specimens: Specimens) -> list[str]:
     """Raise for populations with no failures; return warnings for weakly identified ones."""
-    warnings: list[str] = []
+    warnings: list[str] = list(specimens.warnings)   # doubts found while reading the table
     possible = specimens.possible_failures()
     certain = specimens.certain_failures()
     names = specimens.population_names

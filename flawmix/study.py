@@ -21,11 +21,13 @@ from pathlib import Path
 from typing import Any
 
 from .errors import FlawmixError
-from .specimens import Population, make_populations
+from .origins import UNCERTAIN_CHOICES
+from .specimens import Population, make_populations, suggest
 from .units import stress_unit
 
 KNOWN_KEYS = {"unit", "confidence", "specimens", "populations", "geometries", "component",
-              "seed", "title", "length_unit", "geometry"}
+              "seed", "title", "length_unit", "geometry", "sheet", "unidentified_words", "origin_separators",
+              "uncertain_origins"}
 
 
 @dataclass(frozen=True)
@@ -44,6 +46,10 @@ class Study:
     priors: dict[str, dict[str, Any]] = field(default_factory=dict)
     path: Path | None = None
     geometry: str | None = None          # geometry of every specimen when the table has no column
+    sheet: str | int | None = None       # the workbook sheet with the specimens
+    unidentified_words: tuple[str, ...] = ()
+    origin_separators: tuple[str, ...] | None = None
+    uncertain_origins: str | None = None
 
     def geometry_objects(self) -> dict:
         """The [geometries.NAME] tables as :class:`flawmix.geometry.Geometry` objects (built
@@ -119,9 +125,9 @@ def read_study(path) -> Study:
         raise FlawmixError(f"{path}: not valid TOML ({exc}); fix the line it names") from None
     except UnicodeDecodeError:
         raise FlawmixError(f"{path}: not UTF-8 text; save the study file as UTF-8") from None
-    unknown = set(raw) - KNOWN_KEYS
+    unknown = sorted(set(raw) - KNOWN_KEYS)
     if unknown:
-        raise FlawmixError(f"{path}: unknown key(s) {', '.join(sorted(unknown))}; "
+        raise FlawmixError(f"{path}: unknown key '{unknown[0]}'{suggest(unknown[0], KNOWN_KEYS)}; "
                            f"known keys are {', '.join(sorted(KNOWN_KEYS))}")
     pops = None
     priors: dict[str, dict[str, Any]] = {}
@@ -152,10 +158,35 @@ def read_study(path) -> Study:
     if not isinstance(geometries, dict):
         raise FlawmixError(f"{path}: 'geometries' must be tables [geometries.NAME]")
     component = raw.get("component")
-    return Study(populations=pops, unit=unit, confidence=confidence, specimens=specimens,
+    return Study(**_table_keys(path, raw), populations=pops, unit=unit, confidence=confidence, specimens=specimens,
                  title=raw.get("title"), seed=raw.get("seed"), length_unit=raw.get("length_unit"),
                  geometries=geometries, component=component, priors=priors, path=path,
                  geometry=raw.get("geometry"))
+
+
+def _table_keys(path: Path, raw: dict) -> dict:
+    """The keys that say how to read the specimen table: sheet and the origin vocabulary."""
+    out: dict[str, Any] = {}
+    sheet = raw.get("sheet")
+    if sheet is not None and (not isinstance(sheet, (str, int)) or isinstance(sheet, bool)):
+        raise FlawmixError(f"{path}: key 'sheet' must be a sheet name (\"Bars\") or number (0 = first)")
+    out["sheet"] = sheet
+    for key in ("unidentified_words", "origin_separators"):
+        value = raw.get(key)
+        if value is None:
+            continue
+        if isinstance(value, str):
+            value = [value]
+        if not isinstance(value, list) or not all(isinstance(v, str) for v in value) or \
+                (key == "origin_separators" and (not value or not all(v.strip() for v in value))):
+            raise FlawmixError(f"{path}: key '{key}' must be a list of text, e.g. {key} = "
+                               + ('["n.e.", "no origin"]' if key == "unidentified_words" else '["|", " or "]'))
+        out[key] = tuple(value)
+    uncertain = raw.get("uncertain_origins")
+    if uncertain is not None and uncertain not in UNCERTAIN_CHOICES:
+        raise FlawmixError(f"{path}: key 'uncertain_origins' must be \"count\" or \"unidentified\"")
+    out["uncertain_origins"] = uncertain
+    return out
 
 
 def parse_group_option(text: str) -> tuple[str, dict[str, Any]]:
