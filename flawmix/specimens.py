@@ -13,7 +13,7 @@ import numpy as np
 import pandas as pd
 
 from .errors import FlawmixError, where
-from .origins import UNIDENTIFIED_WORDS, OriginVocabulary, label_advice, normalise_label, read_origin
+from .vocabulary import UNIDENTIFIED_WORDS, OriginVocabulary, label_advice, normalise_label, read_origin
 from .tables import RawTable, read_table
 from .units import plausibility_warning, split_header_unit, stress_unit
 

@@ -21,7 +21,7 @@ from pathlib import Path
 from typing import Any
 
 from .errors import FlawmixError
-from .origins import UNCERTAIN_CHOICES
+from .vocabulary import UNCERTAIN_CHOICES
 from .specimens import Population, make_populations, suggest
 from .units import stress_unit
 
