@@ -321,7 +321,7 @@ def _contour_window(p, confidence):
     contour fits: χ²₂(0.95)/χ²₁(c) ≈ 2.2 at c = 0.90, so about 1.6 × the half-widths."""
     from scipy import stats
 
-    widen = 1.15 * math.sqrt(stats.chi2.ppf(0.95, 2) / stats.chi2.ppf(confidence, 1))
+    widen = 1.4 * math.sqrt(stats.chi2.ppf(0.95, 2) / stats.chi2.ppf(confidence, 1))
     out = []
     for est, (lo, hi) in ((p.characteristic_strength, p.strength_interval), (p.modulus, p.modulus_interval)):
         lo = lo if lo and np.isfinite(lo) and lo > 0 else est / 2
@@ -355,7 +355,7 @@ def likelihood_contour_plot(result, population: str, ax=None, levels=(0.5, 0.9, 
     ax.set_ylabel("Weibull modulus m")
     ax.set_title(f"Likelihood contours, '{population}' ({p.n_failures} failures; others at their estimates)",
                  fontsize=9)
-    ax.legend(fontsize=8, loc="lower right")
+    ax.legend(fontsize=8, loc="upper right")
     ax.grid(True, color="#e4e4e4", lw=0.5)
     return ax
 
