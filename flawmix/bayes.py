@@ -6,12 +6,12 @@ limit is hit (then the result says so in plain words).
 """
 from __future__ import annotations
 
-import sys
 import time
 import warnings as _warnings
 
 import numpy as np
 
+from . import progress as _progress
 from . import _arviz
 from . import diagnostics
 from . import likelihood as lik
@@ -135,9 +135,9 @@ def fit_bayes(
     sampler = emcee.EnsembleSampler(n_walkers, P, log_prob, vectorize=True, moves=moves or emcee.moves.DEMove())
     # emcee draws from its own RandomState: seed it through its public state property
     sampler.random_state = np.random.RandomState(int(rng.integers(2**31 - 1))).get_state()
+    bar = _progress.task(f"sampling ({model} model, {n_walkers} walkers)", None, show=progress)
     state = sampler.run_mcmc(start, burn)
-    if progress:
-        print(f"sampling: {n_walkers} walkers, burn-in {burn} steps done", file=sys.stderr, flush=True)
+    bar.step(burn, "burn-in done")
     sampler.reset()
     steps = 0
     diag = None
@@ -151,12 +151,12 @@ def fit_bayes(
             kept = chain[steps // 5:]
             post = {nm: kept[:, :, i].T for i, nm in enumerate(names_params)}
             diag = diagnostics.convergence(post)   # numpy; arviz's xarray path cost more than sampling
-            if progress:
-                print(f"sampling: {steps} steps, R-hat max {diag['r_hat_max']:.4f} (target {R_HAT_TARGET}), "
-                      f"bulk ESS min {diag['ess_bulk_min']:.0f} (target {target_ess:.0f})", file=sys.stderr, flush=True)
+            bar.step(burn + steps, f"steps, R-hat max {diag['r_hat_max']:.4f} (target {R_HAT_TARGET}), "
+                                   f"bulk ESS min {diag['ess_bulk_min']:.0f} (target {target_ess:.0f})")
             if diag["r_hat_max"] <= R_HAT_TARGET and diag["ess_bulk_min"] >= target_ess:
                 break
         block = min(max(block, steps // 2), 5000)
+    bar.close(f"{burn + steps} steps")
     chain = sampler.get_chain()[steps // 5:]
     kept_steps = chain.shape[0]
     flat = chain.transpose(1, 0, 2).reshape(-1, P)           # walker-major: (walkers*steps, P)

@@ -54,7 +54,8 @@ def _add_fit_options(p: argparse.ArgumentParser) -> None:
     p.add_argument("--model", default="concurrent", choices=["concurrent", "exclusive", "partial"],
                    help="how populations share specimens (default concurrent: every specimen carries all)")
     p.add_argument("--seed", type=int, help="seed of the sampler (default: the study file's, else 0)")
-    p.add_argument("--progress", action="store_true", help="show a progress bar while sampling")
+    p.add_argument("--progress", action="store_true",
+                   help="kept for old scripts: progress now shows on stderr by default (silence it with --quiet)")
     p.add_argument("--reference-prior", action="store_true",
                    help="Bayes: prior 1/(σθ m) instead of the weak defaults (improper; see README)")
     p.add_argument("--confidence", type=float, help="two-sided interval level (default 0.90)")
@@ -63,9 +64,20 @@ def _add_fit_options(p: argparse.ArgumentParser) -> None:
     p.add_argument("--positions", default="hazen", choices=["hazen", "mean-rank", "median-rank"],
                    help="plotting positions of the graphical comparison estimate (default hazen, (i-0.5)/N)")
     p.add_argument("--common-modulus", action="store_true", help="impose one modulus on all populations")
-    p.add_argument("--bootstrap", type=int, default=0, metavar="N",
-                   help="MLE: parametric-bootstrap replicates; intervals on derived quantities and predictions, "
-                        "bias-corrected estimates (with --intervals bootstrap they also set the population intervals)")
+    _add_bootstrap(p)
+
+
+BOOTSTRAP_HELP = ("parametric-bootstrap replicates of the fit (maximum likelihood, concurrent model): intervals on "
+                  "failure probabilities and component predictions, bias-corrected estimates; with --intervals "
+                  "bootstrap they also set the population intervals (default 0: none; the bottom line then uses 1000)")
+
+
+def _add_bootstrap(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--bootstrap", type=int, default=0, metavar="N", help=BOOTSTRAP_HELP)
+
+
+def _add_quiet(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--quiet", action="store_true", help="no progress messages on stderr (warnings and errors still show)")
 
 
 def _load(args):
@@ -108,26 +120,50 @@ def _fit_from_args(args, study, specimens):
                common_modulus=args.common_modulus, **options)
 
 
-def _print_warnings(result) -> None:
-    for w in result.warnings:
-        print(f"warning: {w}", file=sys.stderr)
+def _print_warnings(*results) -> None:
+    """Each warning once on stderr, however many fits (or sub-fits) carry it."""
+    from .progress import notice_once
+
+    for result in results:
+        for w in getattr(result, "warnings", ()):
+            notice_once(f"warning: {w}")
 
 
-def _emit(args, obj, warnings_from=None) -> int:
-    """Print a result as JSON (--json) or as its readable text, then its warnings."""
+def _text(obj) -> str:
+    """A result's readable text without its warnings (the CLI prints those once, on stderr)."""
+    from .result import FitResult, format_result
+
+    return format_result(obj, warnings=False) if isinstance(obj, FitResult) else str(obj)
+
+
+def _emit(args, obj, warnings_from=None, bottom=None) -> int:
+    """Print a result as JSON (--json) or as its readable text (bottom line first), then its warnings."""
     if args.json:
-        print(json.dumps(obj.to_dict(), indent=2, ensure_ascii=False))
+        data = obj.to_dict()
+        if bottom is not None:
+            data["bottom_line"] = bottom.to_dict()
+        print(json.dumps(data, indent=2, ensure_ascii=False))
     else:
-        print(obj)
+        if bottom is not None:
+            print(bottom.text())
+            print()
+        print(_text(obj))
     if warnings_from is not None:
         _print_warnings(warnings_from)
     return 0
 
 
+def _bottom_line(args, study, specimens, result):
+    from .bottomline import analyse
+
+    seed = args.seed if getattr(args, "seed", None) is not None else (study.seed if study.seed is not None else 0)
+    return analyse(result, study, specimens, seed=seed)[0]
+
+
 def cmd_fit(args) -> int:
     study, specimens = _load(args)
     result = _fit_from_args(args, study, specimens)
-    return _emit(args, result, result)
+    return _emit(args, result, result, bottom=_bottom_line(args, study, specimens, result))
 
 
 def cmd_compare(args) -> int:
@@ -135,7 +171,7 @@ def cmd_compare(args) -> int:
 
     study, specimens = _load(args)
     seed = args.seed if args.seed is not None else (study.seed if study.seed is not None else 0)
-    result = compare(specimens, bayes=not args.no_bayes, bootstrap=args.bootstrap, seed=seed)
+    result = compare(specimens, bayes=not args.no_bayes, bootstrap=args.boundary_replicates, seed=seed)
     return _emit(args, result)
 
 
@@ -156,7 +192,7 @@ def cmd_size(args) -> int:
         print(json.dumps(size.to_dict(), indent=2))
     else:
         u = size.unit
-        print(f"{size.geometry}, modulus {size.modulus:g}" + (f", multiaxial rule {size.rule}" if size.rule else ""))
+        print(f"{size.geometry}, modulus {size.modulus:g}" + (f", multiaxial rule: {size.rule}" if size.rule else ""))
         if size.effective_volume is not None:
             print(f"  effective volume  {size.effective_volume:.6g} {u}³")
         if size.effective_area is not None:
@@ -191,9 +227,26 @@ def cmd_predict(args) -> int:
         kwargs["stresses"] = args.stress
     if args.probability:
         kwargs["probabilities"] = args.probability
-    pred = predict(result, study.specimen_geometry(specimens, result), component, changes=changes or None,
-                   component_name=name, **kwargs)
-    return _emit(args, pred, result)
+    coupon = study.specimen_geometry(specimens, result)
+    load = study.component_load()
+    if "stresses" not in kwargs and "stress" in load:
+        kwargs["stresses"] = [load["stress"]]
+    if "probabilities" not in kwargs and "target_probability" in load:
+        kwargs["probabilities"] = [load["target_probability"]]
+    from .bottomline import with_draws
+
+    seed = args.seed if args.seed is not None else (study.seed if study.seed is not None else 0)
+    result = with_draws(result, seed)    # intervals by default (bootstrap, or the fit's own draws)
+    pred = predict(result, coupon, component, component_name=name, **kwargs)
+    if changes:
+        from dataclasses import replace
+
+        from .scenarios import alone_and_together, what_if_table
+
+        probs = kwargs.get("probabilities", list(pred.strengths_at.index))
+        pred = replace(pred, what_if=what_if_table(result, coupon, component, alone_and_together(changes),
+                                                   probabilities=probs, component_name=name))
+    return _emit(args, pred, result, bottom=None if args.json else _bottom_line(args, study, specimens, result))
 
 
 def _parse_population(text: str) -> dict:
@@ -249,108 +302,173 @@ def demo_paths() -> tuple[Path, Path]:
 
 
 def cmd_report(args) -> int:
-    from .report import write_report
+    from .report import analyse, write_report
 
     study, specimens = _load(args)
     seed = args.seed if args.seed is not None else (study.seed if study.seed is not None else 0)
-    out = write_report(specimens, args.out, study=study, force=args.force, method=args.method,
-                       compare_models=not args.no_compare, bayes=not args.no_bayes, bootstrap=args.bootstrap,
-                       seed=seed, confidence=args.confidence)
-    print(f"report written to {out}/report.html (with results.json, figures/, tables/)")
+    from .report import _prepare_folder
+
+    _prepare_folder(Path(args.out), args.force, check_only=True)   # refuse before the long part
+    a = analyse(specimens, study=study, method=args.method, compare_models=not args.no_compare,
+                bayes=not args.no_bayes, boundary_replicates=args.boundary_replicates, bootstrap=args.bootstrap,
+                seed=seed, confidence=args.confidence)
+    out = write_report(specimens, args.out, study=study, force=args.force, seed=seed, analysis=a)
+    print(a.bottom.text())
+    print(f"\nreport written to {out}/report.html (with results.json, figures/, tables/)")
+    _print_warnings(a.mle, a.main)
     return 0
 
 
 def cmd_demo(args) -> int:
-    from .report import write_report
+    from .report import _prepare_folder, analyse, write_report
 
     csv, toml = demo_paths()
     ns = argparse.Namespace(study=str(toml), group=[], unit=None, specimens=str(csv), confidence=None,
                             intervals="auto", positions="hazen", common_modulus=False)
     study, specimens = _load(ns)
-    result = _fit_from_args(ns, study, specimens)
+    _prepare_folder(Path(args.out), args.force, check_only=True)
+    seed = study.seed or 0
+    a = analyse(specimens, study=study, seed=seed)
+    out = write_report(specimens, args.out, study=study, force=args.force, seed=seed, analysis=a)
     print(f"Demo data (invented): {study.title}\n")
-    print(result)
-    _print_warnings(result)
-    out = write_report(specimens, args.out, study=study, force=args.force, seed=study.seed or 0)
-    print(f"\nFull report (model comparison, which flaw limits the seal ring, what-if): {out}/report.html")
+    print(a.bottom.text())
+    print()
+    print(_text(a.mle))
+    _print_warnings(a.mle)
+    page = Path(out) / "report.html"
+    print(f"\nFull report: {page}")
+    print("Look first at the bottom-line box at the top of the report (the same as above), then at section 2, "
+          "the probability plot (figures/probability_plot.png): each flaw population's points should follow its "
+          "own dashed line. Section 5 says which flaw limits the seal ring and what removing it would gain.")
     return 0
+
+
+EXAMPLES = """examples:
+  flawmix demo --out demo-report
+      analyse the invented demo data and write its report (look at the bottom line first)
+  flawmix fit bars.csv --group pores:volume=pore,void --group grinding:surface="grinding damage"
+      fit each flaw population of a specimen table (origins grouped on the command line)
+  flawmix report --study study.toml --out report --method bayes
+      the whole analysis of a study file (populations, geometry, component) as an HTML report
+"""
 
 
 def build_parser() -> argparse.ArgumentParser:
     from . import __version__
 
-    parser = _Parser(prog="flawmix", description="Strength statistics of brittle materials with competing flaw populations.")
-    parser.add_argument("--version", action="version", version=f"flawmix {__version__}")
+    parser = _Parser(prog="flawmix", description="Strength statistics of brittle materials with competing flaw populations.",
+                     epilog=EXAMPLES, formatter_class=argparse.RawDescriptionHelpFormatter)
+    parser.add_argument("--version", action="version", version=f"flawmix {__version__}", help="print the version and exit")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
+    table_help = "specimen table (.csv or .xlsx); may come from the study file's 'specimens'"
 
-    p = _table_command(sub, "fit", "fit every flaw population of a specimen table", "specimen table (.csv or .xlsx); may come from the study file")
+    p = _table_command(sub, "fit", "fit every flaw population of a specimen table", table_help)
     _add_fit_options(p)
-    p.add_argument("--json", action="store_true", help="print the result as JSON (schema in README)")
+    p.add_argument("--json", action="store_true", help="print the result as JSON (schema in README), bottom line included")
+    _add_quiet(p)
     p.set_defaults(func=cmd_fit)
 
-    p = _table_command(sub, "compare", "compare single, concurrent, exclusive and partial models", "specimen table (.csv or .xlsx); may come from the study file")
+    p = _table_command(sub, "compare", "compare single, concurrent, exclusive and partial models", table_help)
     p.add_argument("--no-bayes", action="store_true", help="skip the Bayesian fits (no PSIS-LOO; faster)")
-    p.add_argument("--bootstrap", type=int, default=199, metavar="N",
-                   help="parametric-bootstrap replicates for the boundary test (default 199, 0 = skip)")
+    p.add_argument("--boundary-replicates", type=int, default=199, metavar="N",
+                   help="simulated campaigns for the concurrent-vs-partial test, whose null sits on a boundary "
+                        "(default 199, 0 = skip the test)")
     p.add_argument("--seed", type=int, help="seed (default: the study file's, else 0)")
     p.add_argument("--json", action="store_true", help="print the comparison as JSON")
+    _add_quiet(p)
     p.set_defaults(func=cmd_compare)
 
     p = sub.add_parser("size", help="effective volume, area and edge length of a test geometry")
     p.add_argument("geometry", choices=["flexure-3pt", "flexure-4pt", "rod-flexure-3pt", "rod-flexure-4pt",
-                                        "tension-rect", "tension-round", "ring-on-ring", "elements"])
-    p.add_argument("--modulus", type=float, required=True, help="Weibull modulus m")
-    for name in ("width", "depth", "outer-span", "inner-span", "diameter", "gauge-length", "load-radius",
-                 "support-radius", "disc-radius", "thickness"):
-        p.add_argument(f"--{name}", type=float)
+                                        "tension-rect", "tension-round", "ring-on-ring", "elements"],
+                   help="test geometry: bar or rod in three- or four-point flexure, tension bar or rod, "
+                        "ring-on-ring disc, or an element table from a stress analysis")
+    p.add_argument("--modulus", type=float, required=True, help="Weibull modulus m (required)")
+    dimension_help = {"width": "bar width b", "depth": "bar depth d (in the loading direction)",
+                      "outer-span": "flexure: outer (support) span L", "inner-span": "four-point flexure: inner (load) span",
+                      "diameter": "rod diameter D", "gauge-length": "tension: length of the uniformly stressed gauge",
+                      "load-radius": "ring-on-ring: load ring radius", "support-radius": "ring-on-ring: support ring radius",
+                      "disc-radius": "ring-on-ring: disc radius", "thickness": "ring-on-ring: disc thickness"}
+    for name, text in dimension_help.items():
+        p.add_argument(f"--{name}", type=float, help=f"{text} (in --length-unit)")
     p.add_argument("--poisson", type=float, help="Poisson's ratio (ring-on-ring, default 0.25)")
-    p.add_argument("--rule", default="pia", choices=["pia", "largest"],
-                   help="multiaxial rule: principle of independent action (default) or largest principal stress")
+    p.add_argument("--rule", default="independent-action", type=_rule,
+                   help="multiaxial rule: independent-action (principle of independent action, default; also 'pia') "
+                        "or largest-principal (largest principal stress only; also 'largest')")
     p.add_argument("--table", help="element table for 'elements' (volume or area, stress_1[, stress_2, stress_3])")
     p.add_argument("--length-unit", default="mm", help="unit of the lengths (default mm)")
-    p.add_argument("--json", action="store_true")
+    p.add_argument("--json", action="store_true", help="print the sizes as JSON")
     p.set_defaults(func=cmd_size)
 
-    p = _table_command(sub, "predict", "carry a fit to a component: failure probability, limiting flaw, what-if", "specimen table; may come from the study file")
+    p = _table_command(sub, "predict", "carry a fit to a component: failure probability, limiting flaw, what-if",
+                       table_help)
+    p.description = ("Required: --study FILE with the specimen geometry and a [component] table (its optional "
+                     "'stress' key is the analysed load). Intervals come from a parametric bootstrap (1000 "
+                     "replicates) unless --bootstrap N or --method bayes says otherwise.")
+    for action in p._actions:
+        if action.dest == "study":
+            action.required = True
+            action.help = "study file (TOML) with populations, the specimen geometry and a [component] table (required)"
     _add_fit_options(p)
-    p.add_argument("--stress", type=float, action="append", help="component reference stress to report (repeat)")
-    p.add_argument("--probability", type=float, action="append", help="failure probability to report (repeat)")
+    p.add_argument("--stress", type=float, action="append",
+                   help="component reference stress to report (repeat; default the study's [component] stress)")
+    p.add_argument("--probability", type=float, action="append",
+                   help="failure probability at which to report the stress (repeat)")
     p.add_argument("--what-if", action="append", default=[], metavar="POPULATION=FACTOR",
-                   help="scale a population's risk: 0 removes it, 0.5 halves it (repeat)")
-    p.add_argument("--json", action="store_true")
+                   help="scale a population's risk: 0 removes it, 0.5 halves it (repeat; each change is shown "
+                        "alone and all together)")
+    p.add_argument("--json", action="store_true", help="print the prediction as JSON")
+    _add_quiet(p)
     p.set_defaults(func=cmd_predict)
 
-    p = _table_command(sub, "plan", "how many specimens: precision, bias and power by simulation", "specimen table whose fitted populations to assume (optional)")
+    p = _table_command(sub, "plan", "how many specimens: precision, bias and power by simulation",
+                       "specimen table whose fitted populations to assume (optional)")
     p.add_argument("--population", action="append", default=[], metavar="NAME:M:SIGMA",
                    help="assumed population: name, modulus, characteristic strength (repeat)")
-    p.add_argument("--sizes", type=int, nargs="+", default=[10, 15, 20, 30, 40, 60, 80], help="specimen counts")
+    p.add_argument("--sizes", type=int, nargs="+", default=[10, 15, 20, 30, 40, 60, 80],
+                   help="numbers of specimens to simulate (default 10 15 20 30 40 60 80)")
     p.add_argument("--unidentified", type=float, help="share of failures whose origin will not be found")
     p.add_argument("--censor-at", type=float, help="run-out or proof stress: specimens reaching it survive")
     p.add_argument("--replicates", type=int, default=2000, help="campaigns simulated per size (default 2000)")
     p.add_argument("--confidence", type=float, help="central range reported (default 0.90)")
-    p.add_argument("--seed", type=int)
-    p.add_argument("--progress", action="store_true")
+    p.add_argument("--seed", type=int, help="seed of the simulation (default 0)")
+    p.add_argument("--progress", action="store_true",
+                   help="kept for old scripts: progress now shows on stderr by default (silence it with --quiet)")
     p.add_argument("--plot", help="save the precision-and-power figure to this PNG/SVG file")
     p.add_argument("--force", action="store_true", help="replace an existing --plot file")
-    p.add_argument("--json", action="store_true")
+    p.add_argument("--json", action="store_true", help="print the plan as JSON")
+    _add_quiet(p)
     p.set_defaults(func=cmd_plan)
 
-    p = _table_command(sub, "report", "run the whole analysis and write an HTML report folder", "specimen table; may come from the study file")
-    p.add_argument("--out", required=True, help="report folder to create (refuses to replace one without --force)")
+    p = _table_command(sub, "report", "run the whole analysis and write an HTML report folder", table_help)
+    p.add_argument("--out", required=True, help="report folder to create (required; refuses to replace one without --force)")
     p.add_argument("--force", action="store_true", help="replace an existing report folder")
     p.add_argument("--method", default="mle", choices=["mle", "bayes"], help="estimates shown (default mle)")
     p.add_argument("--confidence", type=float, help="two-sided interval level (default 0.90)")
     p.add_argument("--no-compare", action="store_true", help="skip the model comparison")
     p.add_argument("--no-bayes", action="store_true", help="model comparison without Bayesian fits (no PSIS-LOO)")
-    p.add_argument("--bootstrap", type=int, default=199, metavar="N", help="bootstrap replicates of the boundary test")
+    _add_bootstrap(p)
+    p.add_argument("--boundary-replicates", type=int, default=199, metavar="N",
+                   help="simulated campaigns for the concurrent-vs-partial test (default 199, 0 = skip)")
     p.add_argument("--seed", type=int, help="seed (default: the study file's, else 0)")
+    _add_quiet(p)
     p.set_defaults(func=cmd_report)
 
     p = sub.add_parser("demo", help="analyse the embedded, invented demo data and write its report")
     p.add_argument("--out", default="flawmix-demo-report", help="report folder (default flawmix-demo-report)")
     p.add_argument("--force", action="store_true", help="replace an existing report folder")
+    _add_quiet(p)
     p.set_defaults(func=cmd_demo)
     return parser
+
+
+def _rule(text: str) -> str:
+    from .scaling import multiaxial_rule
+
+    try:
+        return multiaxial_rule(text)
+    except FlawmixError as exc:
+        raise argparse.ArgumentTypeError(str(exc)) from None
 
 
 def main(argv=None) -> int:
@@ -360,7 +478,9 @@ def main(argv=None) -> int:
         if not getattr(args, "command", None):
             parser.print_help()
             return EXIT_USAGE
-        with warnings.catch_warnings():
+        from .progress import shown
+
+        with warnings.catch_warnings(), shown(not getattr(args, "quiet", False)):
             # Results carry their own warnings; the CLI prints them once, as one line each.
             warnings.simplefilter("ignore", FlawmixWarning)
             return args.func(args)

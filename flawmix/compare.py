@@ -18,6 +18,7 @@ import pandas as pd
 from scipy import stats as _sstats
 
 from . import likelihood as lik
+from . import progress as _progress
 from .errors import FlawmixError, FlawmixWarning
 from .evidence import evidence_words, loo_words, verdict_sentence
 from .result import FitResult, HypothesisTest, _num
@@ -87,7 +88,9 @@ def _bootstrap_partial_vs_concurrent(specimens: Specimens, concurrent: FitResult
                     None, design, replicates, rng)
     exceed = 0
     used = 0
+    bar = _progress.task("boundary test (concurrent vs partial), replicates", replicates)
     for r in range(replicates):
+        bar.step(r + 1)
         data = replicate(sims, r)
         if np.any(data.candidates[data.failed].sum(axis=0) == 0):
             continue   # a population without failures: no fit, as with real data
@@ -97,6 +100,7 @@ def _bootstrap_partial_vs_concurrent(specimens: Specimens, concurrent: FitResult
         used += 1
         if 2 * (part.loglik - conc.loglik) >= observed - 1e-9:
             exceed += 1
+    bar.close()
     return (1 + exceed) / (1 + used), used
 
 

@@ -72,7 +72,8 @@ def model_ppf(model: str, probability, moduli, scales, fractions=None, partial_i
 
 def _sf_rows(model, stress_per_row, m, sc, fr, partial_index):
     """Survival at one stress per parameter row: stress (S,), parameters (S, k)."""
-    H = (stress_per_row[:, None] / sc) ** m
+    with np.errstate(over="ignore"):   # far above σθ the risk overflows to inf: survival 0, as it should
+        H = (stress_per_row[:, None] / sc) ** m
     if model.startswith("concurrent"):
         return np.exp(-H.sum(axis=1))
     if model == "exclusive":

@@ -33,7 +33,7 @@ class Geometry:
     @classmethod
     def from_spec(cls, name: str, spec: Mapping[str, Any], base_dir: Path | None = None, unit: str = "mm") -> "Geometry":
         """Build from a study-file table, e.g. ``{"type": "flexure-4pt", "width": 4, ...}``,
-        ``{"type": "elements", "volume_table": "v.csv", "area_table": "a.csv", "rule": "pia"}`` or
+        ``{"type": "elements", "volume_table": "v.csv", "area_table": "a.csv", "rule": "independent-action"}`` or
         ``{"type": "sizes", "volume": 120.0, "area": 800.0}`` (fixed sizes, independent of m)."""
         spec = dict(spec)
         kind = spec.pop("type", None)
@@ -49,7 +49,7 @@ class Geometry:
                         raise FlawmixError(f"geometry '{name}': {key} must be positive")
                     curves[k] = value
         elif kind == "elements":
-            rule = dims.get("rule", "pia")
+            rule = dims.get("rule", "independent-action")
             for k, key in (("volume", "volume_table"), ("surface", "area_table")):
                 if key in dims:
                     path = Path(dims[key])

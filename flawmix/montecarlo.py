@@ -11,6 +11,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from . import progress as _progress
+
 from . import likelihood as lik
 from .replicates import fit_concurrent_batch, pooled_loglik
 from .simulate import Design, simulate
@@ -57,11 +59,8 @@ def simulate_and_fit(model: lik.Model, moduli, scales, fractions, design: Design
              design, size, s) for size, s in zip(sizes, seeds)]
     mapper = map if executor is None else executor.map
     parts = []
-    for i, part in enumerate(mapper(_run_chunk, jobs)):
-        parts.append(part)
-        if progress:
-            done = sum(len(p[2]) for p in parts)
-            print(f"\rsimulated and fitted {done}/{replicates} campaigns", end="", file=sys.stderr, flush=True)
-    if progress:
-        print(file=sys.stderr)
+    with _progress.task("simulated and fitted campaigns", replicates, show=progress) as bar:
+        for i, part in enumerate(mapper(_run_chunk, jobs)):
+            parts.append(part)
+            bar.step(sum(len(p[2]) for p in parts))
     return ReplicateFits(*(np.concatenate([p[i] for p in parts]) for i in range(6)))

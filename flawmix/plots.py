@@ -47,15 +47,37 @@ def _weibit(p):
         return np.log(-np.log1p(-p))
 
 
-def _stress_axis(ax, unit):
+def _log_ticks(axis, lo: float, hi: float) -> None:
+    """Readable ticks on a logarithmic axis over any range: every integer multiple over a
+    narrow range, 1-2-5 over a few decades, whole decades (thinned) beyond."""
     from matplotlib.ticker import FuncFormatter, LogLocator, NullFormatter
 
+    decades = math.log10(hi / lo) if hi > lo > 0 else 1.0
+    if decades < 1.0:
+        subs = tuple(range(1, 10))
+    elif decades < 1.6:
+        subs = (1.0, 2.0, 3.0, 5.0, 7.0)
+    elif decades < 3.5:
+        subs = (1.0, 2.0, 5.0)
+    else:
+        subs = (1.0,)
+    axis.set_major_locator(LogLocator(base=10, subs=subs, numticks=12))
+    axis.set_major_formatter(FuncFormatter(_tick_text))
+    axis.set_minor_formatter(NullFormatter())
+
+
+def _tick_text(x, _=None) -> str:
+    if x <= 0:
+        return ""
+    if 1e-3 <= x < 1e5:
+        return f"{x:g}"
+    return f"$10^{{{round(math.log10(x))}}}$" if abs(math.log10(x) - round(math.log10(x))) < 1e-9 else f"{x:.0e}"
+
+
+def _stress_axis(ax, unit):
     ax.set_xscale("log")
     lo, hi = ax.get_xlim()
-    dense = hi / lo < 20   # narrow ranges get a tick at every integer multiple
-    ax.xaxis.set_major_locator(LogLocator(base=10, subs=tuple(range(1, 10)) if dense else (1.0, 2.0, 3.0, 5.0, 7.0)))
-    ax.xaxis.set_major_formatter(FuncFormatter(lambda x, _: f"{x:g}"))
-    ax.xaxis.set_minor_formatter(NullFormatter())
+    _log_ticks(ax.xaxis, lo, hi)
     ax.set_xlabel(f"strength ({unit}), logarithmic")
 
 
@@ -63,22 +85,64 @@ def _style(j):
     return STYLES[j % len(STYLES)]
 
 
+def _band_edges(frame):
+    return _weibit(frame["low"].clip(1e-12, 1 - 1e-12)), _weibit(frame["high"].clip(1e-12, 1 - 1e-12))
+
+
+def _survivor_heights(strength, base: float, step: float) -> np.ndarray:
+    """Survivors at (nearly) the same stress are stacked upwards so every one stays visible."""
+    order = np.argsort(strength, kind="stable")
+    heights = np.empty(len(strength))
+    last, level = None, 0
+    for i in order:
+        if last is not None and abs(strength[i] / last - 1) < 0.004:
+            level += 1
+        else:
+            level, last = 0, strength[i]
+        heights[i] = base + step * level
+    return heights
+
+
+def _crossover_marks(ax, changes, unit, lo, hi):
+    """A dotted line and a short letter at each change of the dominating population; the
+    legend spells each out. Letters close together are staggered downwards."""
+    placed = []
+    for n, c in enumerate(changes):
+        letter = chr(ord("A") + n)
+        x = c["stress"]
+        frac = math.log(x / lo) / math.log(hi / lo)
+        row = sum(1 for f in placed if abs(f - frac) < 0.05)
+        placed.append(frac)
+        ax.axvline(x, color="#444444", ls=":", lw=1.2, zorder=2,
+                   label=f"{letter}: {c['below']} dominates below {x:.4g} {unit}, {c['above']} above")
+        ax.text(x, 0.97 - 0.07 * row, f" {letter}", transform=ax.get_xaxis_transform(), fontsize=9,
+                fontweight="bold", color="#333333", va="top", ha="left", clip_on=True,
+                bbox=dict(boxstyle="round,pad=0.15", fc="white", ec="none", alpha=0.85))
+
+
 def probability_plot(result, ax=None, view: str = "populations", band: bool = True, crossover: bool = True,
                      title: str | None = None):
     # (the legend sits below the axes, so the default figure is taller than wide-screen)
-    """Weibull probability plot: every specimen marked by origin population, each
-    population's fitted line, the model's combined curve with its band, the crossover.
+    """Weibull probability plot of every specimen, marked by origin population.
 
-    view: ``populations`` (each population at its own adjusted ranks) or ``all``
-    (all failures ranked together)."""
-    ax = _ax(ax, (7.5, 6.2))
+    view ``populations``: each population's failures at its own adjusted ranks, with that
+    population's own fitted line and own band; ``all``: all failures ranked together, with
+    the model's combined curve and its band and the stresses where the dominating
+    population changes."""
+    from .bottomline import dominance_changes
+
+    if view not in ("populations", "all"):
+        raise FlawmixError(f"unknown view '{view}'; use 'populations' or 'all'")
+    ax = _ax(ax, (7.5, 6.6))
     pos = result.plotting_positions(view)
     names = [p.name for p in result.populations]
     s = pos["strength"].to_numpy()
     lo, hi = s.min() / 1.25, s.max() * 1.12
-    grid = np.geomspace(lo, hi, 300)
+    grid = np.geomspace(lo, hi, 400)
+    what = "credible" if result.method == "bayes" else "confidence"
+    drawn = result.parameter_draws()
+    kind = drawn.kind if drawn is not None else ""
 
-    # points
     for j, name in enumerate(names):
         mine = pos[pos["group"] == name]
         colour, marker, filled = _style(j)
@@ -90,40 +154,38 @@ def probability_plot(result, ax=None, view: str = "populations", band: bool = Tr
         ax.scatter(unk["strength"], _weibit(unk["probability"]), marker=UNIDENTIFIED[1], s=42, zorder=4,
                    color=UNIDENTIFIED[0], linewidths=0.6, label=f"origin unidentified or ambiguous, {len(unk)}")
 
-    # fitted lines
-    for j, p in enumerate(result.populations):
-        colour = _style(j)[0]
-        ax.plot(grid, _weibit(p.cdf(grid)), color=colour, lw=1.3, ls=(0, (5, 3)), zorder=3)
-    combined = result.cdf(grid)
-    ax.plot(grid, _weibit(combined), color="black", lw=2.0, zorder=3, label=f"{result.model} model, all populations")
-    if band:
-        fp = result.failure_probability(grid, approximate=True)
-        if "low" in fp:
-            kind = (result.draws.kind if result.draws is not None else "normal approximation")
-            what = "credible" if result.method == "bayes" else "confidence"
-            ax.fill_between(grid, _weibit(fp["low"].clip(1e-12, 1 - 1e-12)), _weibit(fp["high"].clip(1e-12, 1 - 1e-12)),
-                            color="black", alpha=0.12, lw=0, zorder=1,
-                            label=f"{result.confidence:.0%} {what} band ({kind})")
+    if view == "populations":
+        for j, p in enumerate(result.populations):
+            colour = _style(j)[0]
+            ax.plot(grid, _weibit(p.cdf(grid)), color=colour, lw=1.4, ls=(0, (5, 3)), zorder=3,
+                    label=f"{p.name} alone: fitted line")
+            if band and drawn is not None:
+                edges = _band_edges(result.population_failure_probability(p.name, grid, approximate=True))
+                ax.fill_between(grid, *edges, color=colour, alpha=0.10, lw=0, zorder=1,
+                                label=f"{p.name}: {result.confidence:.0%} {what} band ({kind})")
+    else:
+        for j, p in enumerate(result.populations):
+            ax.plot(grid, _weibit(p.cdf(grid)), color=_style(j)[0], lw=0.9, ls=(0, (2, 3)), zorder=2, alpha=0.8)
+        ax.plot(grid, _weibit(result.cdf(grid)), color="black", lw=2.0, zorder=3,
+                label=f"{result.model} model, all populations")
+        if band and drawn is not None:
+            fp = result.failure_probability(grid, approximate=True)
+            if "low" in fp:
+                ax.fill_between(grid, *_band_edges(fp), color="black", alpha=0.12, lw=0, zorder=1,
+                                label=f"model: {result.confidence:.0%} {what} band ({kind})")
     ymin = float(np.nanmin(_weibit(pos["probability"].dropna()))) - 0.8
-    ymax = float(np.nanmax(_weibit(pos["probability"].dropna()))) + 0.6
-    ymax = max(ymax, 1.2)
+    ymax = max(float(np.nanmax(_weibit(pos["probability"].dropna()))) + 0.9, 1.4)
 
-    if crossover and result.model.startswith("concurrent") and len(names) > 1:
-        from .predict import crossovers
-
-        for c in crossovers(result.moduli, result.characteristic_strengths, names):
-            if lo < c["stress"] < hi:
-                ax.axvline(c["stress"], color="#444444", ls=":", lw=1.2, zorder=2)
-                ax.annotate(f"crossover {c['stress']:.4g} {result.unit}:\n{c['below']} below, {c['above']} above",
-                            (c["stress"], ymax - 0.15), xytext=(-4, 0), textcoords="offset points", fontsize=8,
-                            color="#333333", va="top", ha="right",
-                            bbox=dict(boxstyle="round,pad=0.2", fc="white", ec="none", alpha=0.85))
+    if crossover and view == "all" and result.model.startswith("concurrent") and len(names) > 1:
+        _crossover_marks(ax, dominance_changes(result.moduli, result.characteristic_strengths, names, lo, hi),
+                         result.unit, lo, hi)
 
     surv = pos[pos["group"] == "survived"]
     if len(surv):
-        ax.scatter(surv["strength"], np.full(len(surv), ymin + 0.12), marker=SURVIVOR[1], s=40, zorder=4,
+        heights = _survivor_heights(surv["strength"].to_numpy(), ymin + 0.15, 0.22)
+        ax.scatter(surv["strength"], heights, marker=SURVIVOR[1], s=40, zorder=4,
                    facecolors="white", edgecolors=SURVIVOR[0], linewidths=1.2,
-                   label=f"survived (at the stress withstood), {len(surv)}")
+                   label=f"survived (at the stress withstood; same stress stacked), {len(surv)}")
 
     ax.set_xlim(lo, hi)
     _stress_axis(ax, result.unit)
@@ -136,7 +198,7 @@ def probability_plot(result, ax=None, view: str = "populations", band: bool = Tr
     right.set_yticklabels([f"{t:g}" for t in ticks])
     right.set_ylabel("failure probability (%)")
     ax.grid(True, which="major", color="#dddddd", lw=0.6)
-    ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.13), ncol=2, fontsize=8, frameon=False)
+    ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.13), ncol=2, fontsize=7.5, frameon=False)
     rule = {"hazen": "(i − 0.5)/N", "mean-rank": "i/(N + 1)", "median-rank": "(i − 0.3)/(N + 0.4)"}[result.plotting_rule]
     ax.set_title(title or f"Probability plot: {'adjusted ranks per population' if view == 'populations' else 'all specimens ranked together'}, {rule}",
                  fontsize=10)
@@ -172,36 +234,40 @@ def failure_share_plot(result, ax=None, coupon=None, component=None, component_n
 
 def size_effect_plot(result, coupon, component=None, ax=None, component_name="component"):
     """Characteristic strength of each population against effective size (relative to the
-    test specimen), with the test specimen and the component marked."""
+    test specimen), with the test specimen and the component marked (named in the legend,
+    so no label sits on another)."""
     from .predict import size_effect
 
-    ax = _ax(ax, (7.0, 4.5))
+    ax = _ax(ax, (7.0, 4.8))
     table = size_effect(result, coupon, component)
+    ys = []
     for j, p in enumerate(result.populations):
         colour, marker, filled = _style(j)
         rows = table[table["population"] == p.name]
         measure = {"volume": "volume", "surface": "area", "edge": "edge length"}.get(p.kind, p.kind)
         ax.plot(rows["ratio"], rows["characteristic_strength"], color=colour, lw=2,
                 label=f"{p.name}: scales with effective {measure}, m = {p.modulus:.3g}")
-        ax.scatter([1.0], [p.characteristic_strength], marker="o", s=50, color=colour, zorder=4)
-        if j == 0:
-            ax.annotate("test specimen", (1.0, p.characteristic_strength), xytext=(6, 6),
-                        textcoords="offset points", fontsize=8)
+        ys += list(rows["characteristic_strength"])
+        ax.scatter([1.0], [p.characteristic_strength], marker="o", s=50, color=colour, zorder=4,
+                   label="test specimen" if j == 0 else None)
         cr = rows["component_ratio"].iloc[0]
         if np.isfinite(cr):
             y = p.characteristic_strength * cr ** (-1 / p.modulus)
-            ax.scatter([cr], [y], marker="*", s=140, color=colour, edgecolors="black", zorder=5)
-            ax.annotate(f"{component_name}", (cr, y), xytext=(5, 4), textcoords="offset points", fontsize=8)
+            ax.scatter([cr], [y], marker="*", s=140, color=colour, edgecolors="black", zorder=5,
+                       label=f"{component_name} (each population at its own effective size)" if j == 0 else None)
     ax.axvline(1.0, color="#888888", lw=0.8, ls=":")
     ax.set_xscale("log")
     ax.set_yscale("log")
-    from matplotlib.ticker import FuncFormatter, NullFormatter
-    ax.yaxis.set_major_formatter(FuncFormatter(lambda x, _: f"{x:g}"))
-    ax.yaxis.set_minor_formatter(FuncFormatter(lambda x, _: f"{x:g}"))
+    xlo, xhi = float(table["ratio"].min()), float(table["ratio"].max())
+    ax.set_xlim(xlo, xhi)
+    ylo, yhi = min(ys) / 1.05, max(ys) * 1.05
+    ax.set_ylim(ylo, yhi)
+    _log_ticks(ax.xaxis, xlo, xhi)
+    _log_ticks(ax.yaxis, ylo, yhi)
     ax.set_xlabel("effective size relative to the test specimen (each population its own measure)")
     ax.set_ylabel(f"characteristic strength ({result.unit})")
-    ax.grid(True, which="both", color="#e4e4e4", lw=0.5)
-    ax.legend(fontsize=8)
+    ax.grid(True, which="major", color="#e4e4e4", lw=0.5)
+    ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.16), ncol=2, fontsize=8, frameon=False)
     ax.set_title("Size effect: each flaw population weakens at its own rate", fontsize=10)
     return ax
 
@@ -242,26 +308,68 @@ def pair_plot(result, max_points: int = 3000, seed: int = 0):
     return fig
 
 
-def likelihood_contour_plot(result, population: str, ax=None, levels=(0.5, 0.8, 0.9, 0.95)):
+MIN_CONTOUR_FAILURES = 3
+
+
+def contour_populations(result) -> list[str]:
+    """Populations with a likelihood-contour panel: at least three certain failures."""
+    return [p.name for p in result.populations if p.n_failures >= MIN_CONTOUR_FAILURES]
+
+
+def _contour_window(p, confidence):
+    """Axis ranges from the population's own intervals, widened (in logs) so the 95 % joint
+    contour fits: χ²₂(0.95)/χ²₁(c) ≈ 2.2 at c = 0.90, so about 1.6 × the half-widths."""
+    from scipy import stats
+
+    widen = 1.4 * math.sqrt(stats.chi2.ppf(0.95, 2) / stats.chi2.ppf(confidence, 1))
+    out = []
+    for est, (lo, hi) in ((p.characteristic_strength, p.strength_interval), (p.modulus, p.modulus_interval)):
+        lo = lo if lo and np.isfinite(lo) and lo > 0 else est / 2
+        hi = hi if hi and np.isfinite(hi) else est * 2
+        out.append((est * (lo / est) ** widen, est * (hi / est) ** widen))
+    return out
+
+
+def likelihood_contour_plot(result, population: str, ax=None, levels=(0.5, 0.9, 0.95)):
     """Contours of the relative log-likelihood of one population's (m, σθ), other parameters at
-    their estimates; a contour at confidence c is where it drops by χ²₂(c)/2."""
+    their estimates; a contour at confidence c is where it drops by χ²₂(c)/2. Axis ranges
+    follow the population's intervals."""
     from scipy import stats
 
     from .mle import likelihood_surface
 
     ax = _ax(ax, (6.0, 4.8))
-    m, s, values = likelihood_surface(result, population)
+    m, s, values = likelihood_surface(result, population, n=120)
+    levels = sorted(levels)
     cuts = sorted(-stats.chi2.ppf(levels, 2) / 2)
     cs = ax.contour(s, m, values, levels=cuts, colors="#1d3f72", linewidths=1.2, linestyles="solid")
-    ax.clabel(cs, fmt={c: f"{lv:.0%}" for c, lv in zip(cuts, sorted(levels, reverse=True))}, fontsize=8)
+    labels = {c: f"{lv:.0%}" for c, lv in zip(cuts, sorted(levels, reverse=True))}
+    ax.clabel(cs, fmt=labels, fontsize=8, inline=True, inline_spacing=4)
     p = result.population(population)
-    ax.plot([p.characteristic_strength], [p.modulus], marker="+", color="#c2571a", ms=12, mew=2, label="estimate")
+    ax.plot([p.characteristic_strength], [p.modulus], marker="+", color="#c2571a", ms=12, mew=2, ls="none",
+            label="estimate")
+    (xlo, xhi), (ylo, yhi) = _contour_window(p, result.confidence)
+    ax.set_xlim(max(xlo, s.min()), min(xhi, s.max()))
+    ax.set_ylim(max(ylo, m.min()), min(yhi, m.max()))
     ax.set_xlabel(f"characteristic strength σθ ({result.unit})")
     ax.set_ylabel("Weibull modulus m")
-    ax.set_title(f"Likelihood contours, population '{population}' (others at their estimates)", fontsize=10)
-    ax.legend(fontsize=8)
+    ax.set_title(f"Likelihood contours, '{population}' ({p.n_failures} failures; others at their estimates)",
+                 fontsize=9)
+    ax.legend(fontsize=8, loc="upper right")
     ax.grid(True, color="#e4e4e4", lw=0.5)
     return ax
+
+
+def likelihood_contours(result):
+    """One likelihood-contour panel per population with at least three failures (a Figure)."""
+    names = contour_populations(result)
+    if not names:
+        raise FlawmixError(f"no population has {MIN_CONTOUR_FAILURES} or more failures to draw contours for")
+    plt = _plt()
+    fig, axes = plt.subplots(1, len(names), figsize=(5.2 * len(names), 4.4), constrained_layout=True, squeeze=False)
+    for ax, name in zip(axes[0], names):
+        likelihood_contour_plot(result, name, ax=ax)
+    return fig
 
 
 def plan_plot(plan, ax=None):

@@ -20,6 +20,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from . import formatting as fmt
 from .errors import FlawmixError, FlawmixWarning
 
 CSS = """
@@ -32,6 +33,8 @@ th, td { border: 1px solid #c8c8c8; padding: 0.2em 0.5em; text-align: right; }
 th { background: #eef1f5; } td.text, th.text { text-align: left; }
 figure { margin: 1em 0; page-break-inside: avoid; } figure img { max-width: 100%; height: auto; }
 figcaption { font-size: 9pt; color: #444; }
+.bottom-line { background: #f3f6fa; border: 2px solid #1d3f72; padding: 0.2em 1em 0.5em; margin: 1em 0; }
+.bottom-line h2 { border: none; margin-top: 0.4em; } .caution-item { color: #7a3308; }
 .verdict { background: #f3f6fa; border-left: 4px solid #1d3f72; padding: 0.5em 0.8em; }
 .caution { background: #fff6ec; border-left: 4px solid #c2571a; padding: 0.5em 0.8em; }
 .small { font-size: 9pt; color: #444; }
@@ -72,29 +75,31 @@ def _esc(x) -> str:
     return html.escape(str(x), quote=True)
 
 
-def _fmt(x, digits=4) -> str:
-    if x is None:
-        return "—"
-    if isinstance(x, (float, np.floating)):
-        if not np.isfinite(x):
-            return "unbounded" if np.isinf(x) else "—"
-        return f"{x:.{digits}g}"
-    return str(x)
-
-
-def _table(frame: pd.DataFrame, index=True, digits=4) -> str:
+def _table(frame: pd.DataFrame, index=True, kinds=None, index_kind=None) -> str:
+    """An HTML table with every number written by the rules of :mod:`flawmix.formatting`."""
+    if index and index_kind is not None:
+        frame = fmt.format_frame(frame, kinds, index_kind)
+        kinds = {c: "text" for c in frame.columns}
     frame = frame.reset_index() if index else frame
     head = "".join(f'<th class="text">{_esc(c)}</th>' if frame[c].dtype == object else f"<th>{_esc(c)}</th>"
                    for c in frame.columns)
+    text = frame if kinds is not None and all(v == "text" for v in kinds.values()) else fmt.format_frame(frame, kinds)
     rows = []
-    for _, row in frame.iterrows():
+    for (_, row), (_, raw) in zip(text.iterrows(), frame.iterrows()):
         cells = []
         for c in frame.columns:
-            v = row[c]
-            cls = ' class="text"' if isinstance(v, str) else ""
-            cells.append(f"<td{cls}>{_esc(_fmt(v, digits))}</td>")
+            cls = ' class="text"' if isinstance(raw[c], str) and not _numeric_text(raw[c]) else ""
+            cells.append(f"<td{cls}>{_esc(row[c])}</td>")
         rows.append("<tr>" + "".join(cells) + "</tr>")
     return f"<table><thead><tr>{head}</tr></thead><tbody>{''.join(rows)}</tbody></table>"
+
+
+def _numeric_text(v: str) -> bool:
+    try:
+        float(v.replace("> ", ""))
+    except ValueError:
+        return False
+    return True
 
 
 @dataclass
@@ -131,7 +136,8 @@ def _versions() -> dict[str, str]:
     return out
 
 
-def _prepare_folder(out: Path, force: bool) -> Path:
+def _prepare_folder(out: Path, force: bool, check_only: bool = False) -> Path | None:
+    """Check the output folder (before any long computation) and make the temporary one."""
     out = Path(out)
     if out.exists() and not force:
         raise FlawmixError(f"{out}: already exists; choose another --out folder or add --force to replace it")
@@ -142,6 +148,8 @@ def _prepare_folder(out: Path, force: bool) -> Path:
         raise FlawmixError(f"{out}: exists and is not a flawmix report folder; choose another --out "
                            "(--force only replaces an earlier report)")
     _check_place(out)
+    if check_only:
+        return None
     try:
         out.parent.mkdir(parents=True, exist_ok=True)
         tmp = Path(tempfile.mkdtemp(prefix=f".{out.name}.", dir=out.parent))
@@ -176,6 +184,78 @@ def _commit_folder(tmp: Path, out: Path) -> None:
         shutil.rmtree(old, ignore_errors=True)
 
 
+@dataclass
+class Analysis:
+    """Everything one report shows, computed once by the Python API before any section is
+    written. Sections only read it."""
+
+    specimens: object
+    study: object
+    mle: object
+    main: object
+    confidence: float
+    seed: int
+    comparison: object = None
+    prediction: object = None
+    bottom: object = None
+    coupon: object = None
+    component: tuple | None = None      # (name, Geometry)
+    what_if: pd.DataFrame | None = None
+    extra: dict = field(default_factory=dict)
+
+
+def analyse(specimens, *, study=None, method="mle", compare_models=True, bayes=True, boundary_replicates=199,
+            bootstrap=0, seed=0, confidence=None) -> Analysis:
+    """Run every fit, comparison and prediction the report shows (progress on stderr)."""
+    from . import progress
+    from .bottomline import analyse as bottom_line_of, with_draws
+    from .compare import compare
+    from .fit import fit
+    from .predict import predict
+    from .scenarios import standard_scenarios, what_if_table
+
+    conf = confidence or (study.confidence if study and study.confidence else 0.90)
+    sized = study.fit_geometries(specimens) if study else None
+    with _warnings.catch_warnings():
+        _warnings.simplefilter("ignore", FlawmixWarning)
+        with progress.task("fitting (maximum likelihood)") as bar:
+            mle = fit(specimens, confidence=conf, geometries=sized,
+                      **({"bootstrap": bootstrap, "seed": seed} if bootstrap and not sized else {}))
+        main = fit(specimens, method="bayes", confidence=conf, seed=seed,
+                   priors=(study.priors or None) if study else None,
+                   geometries=sized) if method == "bayes" else mle
+        comparison = None
+        if compare_models and len(specimens.populations) > 1 and not sized:
+            with progress.task("comparing models"):
+                comparison = compare(specimens, bayes=bayes, bootstrap=boundary_replicates, seed=seed, confidence=conf)
+    a = Analysis(specimens, study, mle, main, conf, seed, comparison)
+    drawn = with_draws(main, seed) if main.model.startswith("concurrent") else main   # intervals on predictions
+    a.bottom, _ = bottom_line_of(drawn, study, specimens, comparison, seed=seed)
+    comp = study.component_object() if study else None
+    coupon = study.specimen_geometry(specimens, mle, required=False) if study and study.geometries else None
+    if main.model.startswith("concurrent"):
+        a.coupon = coupon
+        a.component = comp if comp is not None and coupon is not None else None
+        if a.component is not None:
+            name, body = a.component
+            load = study.component_load().get("stress")
+            a.prediction = predict(drawn, coupon, body, component_name=name,
+                                   **({"stresses": sorted({load, *_default_stresses(drawn, coupon, body, name)})}
+                                      if load else {}))
+        names = [p.name for p in main.populations]
+        if len(names) > 1:
+            a.what_if = what_if_table(drawn, coupon, a.component[1] if a.component else None,
+                                      standard_scenarios(names),
+                                      component_name=a.component[0] if a.component else "component")
+    return a
+
+
+def _default_stresses(result, coupon, body, name):
+    from .predict import predict
+
+    return list(predict(result, coupon, body, component_name=name).probabilities.index)
+
+
 def write_report(
     specimens,
     out,
@@ -185,203 +265,49 @@ def write_report(
     method: str = "mle",
     compare_models: bool = True,
     bayes: bool = True,
-    bootstrap: int = 199,
+    boundary_replicates: int = 199,
+    bootstrap: int = 0,
     seed: int = 0,
     confidence: float | None = None,
     title: str | None = None,
+    analysis: Analysis | None = None,
 ) -> Path:
     """Run the analysis and write the report folder ``out``; returns its path.
 
-    The folder holds report.html (self-contained), results.json, figures/*.png|svg and
-    tables/*.csv. An existing folder is replaced only with ``force=True``."""
+    boundary_replicates: parametric-bootstrap replicates of the concurrent-vs-partial test
+    (0 skips it); bootstrap: parametric-bootstrap replicates of the fit itself (as
+    ``fit(bootstrap=N)``; the bottom line and component use 1000 when 0). The folder holds
+    report.html (self-contained), results.json, figures/*.png|svg and tables/*.csv. An
+    existing folder is replaced only with ``force=True``."""
     import matplotlib
 
     matplotlib.use("Agg")
-    from . import plots
-    from .compare import compare
-    from .fit import fit
-    from .predict import predict, what_if
+    from . import progress
 
     out = Path(out)
+    _prepare_folder(out, force, check_only=True)
+    a = analysis or analyse(specimens, study=study, method=method, compare_models=compare_models, bayes=bayes,
+                            boundary_replicates=boundary_replicates, bootstrap=bootstrap, seed=seed,
+                            confidence=confidence)
     tmp = _prepare_folder(out, force)
     try:
         (tmp / "figures").mkdir()
         (tmp / "tables").mkdir()
-        conf = confidence or (study.confidence if study and study.confidence else 0.90)
-        sized = study.fit_geometries(specimens) if study else None
-        with _warnings.catch_warnings():
-            _warnings.simplefilter("ignore", FlawmixWarning)
-            mle = fit(specimens, confidence=conf, geometries=sized)
-            main = fit(specimens, method="bayes", confidence=conf, seed=seed,
-                       priors=(study.priors or None) if study else None,
-                       geometries=sized) if method == "bayes" else mle
-            comparison = compare(specimens, bayes=bayes, bootstrap=bootstrap, seed=seed, confidence=conf) \
-                if compare_models and len(specimens.populations) > 1 and not sized else None
         figs = _Figures(tmp / "figures")
-        body: list[str] = []
         heading = title or (study.title if study and study.title else "Strength analysis with competing flaw populations")
-        body.append(f"<h1>{_esc(heading)}</h1>")
-        body.append(f'<p class="small">flawmix {_esc(_versions()["flawmix"])} report; seed {seed}; '
-                    f"confidence {conf:.0%}</p>")
-
-        # 1. question and data
-        body.append("<h2>1. The question and the data</h2>")
-        body.append("<p>Which flaw populations control the strength of these specimens, how strong is each, "
-                    "and what does that mean for the component? Each population is fitted as its own Weibull "
-                    "distribution, with failures from other origins and survivors treated as censored.</p>")
-        src = specimens.source or "DataFrame"
-        body.append(f"<p>Input: <code>{_esc(Path(src).name if specimens.source else src)}</code>"
-                    + (f", SHA-256 <code>{_esc(specimens.checksum)}</code>" if specimens.checksum else "")
-                    + f". Stress unit: {_esc(specimens.unit)}.</p>")
-        counts = specimens.origin_table() if specimens.origin_map else _origin_counts(specimens)
-        counts.to_csv(tmp / "tables" / "origins.csv", index=False)
-        body.append(f"<p>{specimens.n_specimens} specimens: {specimens.n_failed} failed "
-                    f"({specimens.n_unidentified} with the origin unidentified, {specimens.n_ambiguous} ambiguous), "
-                    f"{specimens.n_survived} survived.</p>")
-        body.append(_accounting_html(specimens))
-        body.append("<p>Origin as written → how it was read → population:</p>" + _table(counts, index=False))
-
-        # 2. probability plot
-        body.append("<h2>2. Probability plot</h2>")
-        body.append(figs.add("probability_plot", plots.probability_plot(main).figure,
-                             "Every specimen by fracture origin. Each population's failures sit at Johnson adjusted "
-                             "ranks (other failures and survivors suspended); dashed lines are the populations alone, "
-                             "the solid curve is the fitted model with its band."))
-        body.append(figs.add("probability_plot_all", plots.probability_plot(main, view="all").figure,
-                             "The same data with all failures ranked together: the kink of competing populations."))
-
-        # 3. estimates
-        body.append("<h2>3. Estimates per population</h2>")
-        summary = main.summary()
-        summary.to_csv(tmp / "tables" / "estimates.csv")
-        body.append(_table(summary))
-        kind = "credible (equal-tailed, posterior)" if main.method == "bayes" else \
-            "profile likelihood" if main.populations[0].interval_method == "profile" else main.populations[0].interval_method
-        body.append(f"<p>Model: {_esc(main.model)}; method: {_esc(main.method)}; intervals: {_esc(kind)}, "
-                    f"{conf:.0%} two-sided. Log-likelihood {mle.log_likelihood:.3f}, AIC {mle.aic:.2f}, "
-                    f"BIC {mle.bic:.2f}.</p>")
-        if main.method == "bayes":
-            d = main.extras["diagnostics"]
-            body.append(f"<p>Sampler: {main.extras['walkers']} walkers, {main.extras['steps']} steps kept; "
-                        f"largest R-hat {d['r_hat_max']:.4f}, smallest bulk ESS {d['ess_bulk_min']:.0f}, "
-                        f"smallest tail ESS {d['ess_tail_min']:.0f}. Priors: "
-                        + "; ".join(_esc(f"{p['population']}: m {p['modulus']}, σθ {p['characteristic_strength']}")
-                                    for p in main.priors) + ".</p>")
-            body.append(figs.add("posterior_pairs", plots.pair_plot(main), "Posterior draws of every parameter."))
-        for t in mle.tests:
-            body.append(f"<p>Test {_esc(t.name)}: statistic {t.statistic:.3f}, {t.df} df, p = {t.p_value:.3g}. "
-                        f"{_esc(t.meaning)}</p>")
-        for name in [p.name for p in mle.populations][:4]:
-            try:
-                ax = plots.likelihood_contour_plot(mle, name)
-            except FlawmixError:
-                continue
-            body.append(figs.add(f"likelihood_{_safe(name)}", ax.figure,
-                                 f"Likelihood contours of population '{name}'."))
-
-        # 4. model comparison
-        if comparison is not None:
-            body.append("<h2>4. One population or several, and how do they share specimens?</h2>")
-            table = comparison.table.drop(columns=[c for c in ("pareto_k_bad", "degenerate") if c in comparison.table])
-            table.to_csv(tmp / "tables" / "model_comparison.csv")
-            body.append(_table(table))
-            body.append(f'<p class="verdict">{_esc(comparison.verdict)}</p>')
-            for t in comparison.tests:
-                body.append(f"<p>Test {_esc(t.name)}: statistic {t.statistic:.3f}, p = {t.p_value:.3g} "
-                            f"({_esc(t.method)}). {_esc(t.meaning)}</p>")
-
-        # 5. which flaw limits strength, and the component
-        body.append("<h2>5. Which flaw population limits strength, and what removing it would gain</h2>")
-        comp = study.component_object() if study else None
-        coupon = study.specimen_geometry(specimens, mle, required=False) if study and study.geometries else None
-        prediction = None
-        if main.model.startswith("concurrent"):
-            if comp is not None and coupon is not None:
-                cname, component = comp
-                prediction = predict(main, coupon, component, component_name=cname)
-                body.append(figs.add("failure_shares", plots.failure_share_plot(main, coupon=coupon, component=component,
-                                                                                component_name=cname).figure,
-                                     f"Share of failures from each population: test specimen (solid) and {cname} "
-                                     "(dashed)."))
-            else:
-                body.append(figs.add("failure_shares", plots.failure_share_plot(main).figure,
-                                     "Share of failures from each population across stress."))
-            sides = [("test specimen", prediction.specimen_crossovers if prediction else _crossovers(main))]
-            if prediction is not None:
-                sides.append((prediction.component_name, prediction.component_crossovers))
-            for where, cross in sides:
-                for c in cross:
-                    body.append(f"<p>{_esc(where)}: <b>{_esc(c['below'])}</b> dominates below "
-                                f"{c['stress']:.4g} {_esc(main.unit)}, <b>{_esc(c['above'])}</b> above.</p>")
-            rows = []
-            for p in main.populations:
-                table = what_if(main, coupon, comp[1] if comp and coupon else None, {p.name: 0.0},
-                                probabilities=[1e-3, 0.01, 1 - np.exp(-1)],
-                                component_name=comp[0] if comp else "component")
-                rows.append(table.reset_index().assign(removed=p.name))
-            gains = pd.concat(rows)[["removed", "body", "failure probability", "before", "after", "gain (%)",
-                                     *[c for c in ("gain low (%)", "gain high (%)") if c in rows[0]]]]
-            gains.to_csv(tmp / "tables" / "what_if_removed.csv", index=False)
-            body.append("<p>Stress at a given failure probability with each population removed "
-                        "(e.g. pores by hot isostatic pressing, grinding damage by a finer finish):</p>")
-            body.append(_table(gains, index=False, digits=3))
-        else:
-            body.append(f"<p>Scaling and what-if analyses use the concurrent model; this fit is "
-                        f"'{_esc(main.model)}'.</p>")
-
-        if prediction is not None:
-            body.append(f"<h2>6. The component: {_esc(prediction.component_name)}</h2>")
-            body.append(_table(pd.DataFrame({"population": prediction.populations, "modulus": prediction.moduli,
-                                             "σθ test specimen": prediction.specimen_strengths,
-                                             f"σθ {prediction.component_name}": prediction.component_strengths}),
-                               index=False))
-            prediction.probabilities.to_csv(tmp / "tables" / "component_failure_probability.csv")
-            prediction.strengths_at.to_csv(tmp / "tables" / "component_strength_at_probability.csv")
-            body.append("<p>Failure probability at the component's reference (largest) stress:</p>")
-            body.append(_table(prediction.probabilities, digits=3))
-            body.append("<p>Reference stress at a given failure probability:</p>")
-            body.append(_table(prediction.strengths_at))
-            body.append(figs.add("size_effect", plots.size_effect_plot(main, coupon, comp[1],
-                                                                       component_name=prediction.component_name).figure,
-                                 "Characteristic strength against effective size: each population scales with its "
-                                 "own measure and modulus."))
-            if prediction.intervals == "none":
-                body.append('<p class="small">Intervals on component predictions need posterior or bootstrap draws: '
-                            "run the report with --method bayes, or flawmix predict --bootstrap N.</p>")
-
-        # methods, software, cautions
-        body.append("<h2>Methods and references</h2><ul>")
-        body.append("<li>Competing-risk censored maximum likelihood: each failure contributes the hazard of its "
-                    "origin population (the sum over candidates when the origin is unidentified or ambiguous), "
-                    "every specimen the survival of all populations; survivors only the survival.</li>")
-        body.append("<li>Intervals: pivotal bounds by seeded Monte Carlo for one complete population, profile "
-                    "likelihood otherwise; Bayesian equal-tailed credible intervals from emcee draws.</li>")
-        body.append("<li>Model comparison: AIC, BIC and PSIS-LOO on the same data with origin labels; boundary "
-                    "tests by parametric bootstrap.</li>")
-        body.append("<li>Size scaling: each population with its own effective volume, area or edge length.</li></ul>")
-        body.append("<ol>" + "".join(f"<li>{_esc(r)}</li>" for r in REFERENCES) + "</ol>")
-        body.append("<h2>Software</h2><p>" + ", ".join(f"{_esc(k)} {_esc(v)}" for k, v in _versions().items())
-                    + f"; seed {seed}.</p>")
-        warn = list(dict.fromkeys([*mle.warnings, *(main.warnings if main is not mle else [])]))
-        if warn:
-            body.append("<h2>Warnings</h2><ul>" + "".join(f"<li>{_esc(w)}</li>" for w in warn) + "</ul>")
-        body.append("<h2>Cautions</h2>" + "".join(f'<p class="caution">{_esc(c)}</p>' for c in CAUTIONS))
-
+        body = [f"<h1>{_esc(heading)}</h1>",
+                f'<p class="small">flawmix {_esc(_versions()["flawmix"])} report; seed {a.seed}; '
+                f"confidence {_esc(fmt.level(a.confidence, 'two-sided'))}</p>"]
+        with progress.task("writing the report", len(SECTIONS)) as bar:
+            for i, section in enumerate(SECTIONS):
+                body += section(a, figs, tmp / "tables")
+                bar.step(i + 1, section.__name__.removeprefix("section_").replace("_", " "))
         page = ("<!DOCTYPE html><html lang=\"en\"><head><meta charset=\"utf-8\">"
                 "<meta http-equiv=\"Content-Security-Policy\" content=\"default-src 'none'; img-src data:; "
                 "style-src 'unsafe-inline'\">"
                 f"<title>{_esc(heading)}</title><style>{CSS}</style></head><body>{''.join(body)}</body></html>")
         (tmp / "report.html").write_text(page, encoding="utf-8")
-        results = main.to_dict()
-        if main is not mle:
-            results["maximum_likelihood"] = mle.to_dict()
-        if comparison is not None:
-            results["comparison"] = comparison.to_dict()
-        if prediction is not None:
-            results["prediction"] = prediction.to_dict()
-        results["software"] = _versions()
-        results["seed"] = seed
-        (tmp / "results.json").write_text(json.dumps(results, indent=2, ensure_ascii=False, default=_json_default),
+        (tmp / "results.json").write_text(json.dumps(_results(a), indent=2, ensure_ascii=False, default=_json_default),
                                           encoding="utf-8")
         _commit_folder(tmp, out)
     except OSError as exc:      # disk full, folder removed meanwhile...: nothing partial is left
@@ -394,6 +320,223 @@ def write_report(
     return out
 
 
+def _results(a: Analysis) -> dict:
+    results = a.main.to_dict()
+    if a.main is not a.mle:
+        results["maximum_likelihood"] = a.mle.to_dict()
+    if a.comparison is not None:
+        results["comparison"] = a.comparison.to_dict()
+    if a.prediction is not None:
+        results["prediction"] = a.prediction.to_dict()
+    if a.bottom is not None:
+        results["bottom_line"] = a.bottom.to_dict()
+    results["software"] = _versions()
+    results["seed"] = a.seed
+    return results
+
+
+# ---- sections: each (analysis, figures, tables folder) -> list of HTML pieces -----------------
+# Add a section by writing one small function and listing it in SECTIONS.
+
+def section_bottom_line(a: Analysis, figs, tables) -> list[str]:
+    b = a.bottom
+    items = "".join(f"<li>{_esc(f)}</li>" for f in b.findings)
+    cautions = "".join(f'<li class="caution-item">{_esc(c)}</li>' for c in b.cautions)
+    return ['<div class="bottom-line" id="bottom-line"><h2>Bottom line</h2>'
+            f"<ul>{items}</ul>" + (f"<p><b>Cautions for this data</b></p><ul>{cautions}</ul>" if cautions else "")
+            + '<p class="small">Details: probability plot (section 2), estimates (3), model comparison (4), '
+              "limiting flaw and what-if (5), component (6).</p></div>"]
+
+
+def section_data(a: Analysis, figs, tables) -> list[str]:
+    sp = a.specimens
+    out = ["<h2>1. The question and the data</h2>",
+           "<p>Which flaw populations control the strength of these specimens, how strong is each, "
+           "and what does that mean for the component? Each population is fitted as its own Weibull "
+           "distribution, with failures from other origins and survivors treated as censored.</p>"]
+    src = sp.source or "DataFrame"
+    out.append(f"<p>Input: <code>{_esc(Path(src).name if sp.source else src)}</code>"
+               + (f", SHA-256 <code>{_esc(sp.checksum)}</code>" if sp.checksum else "")
+               + f". Stress unit: {_esc(sp.unit)}.</p>")
+    counts = sp.origin_table() if sp.origin_map else _origin_counts(sp)
+    counts.to_csv(tables / "origins.csv", index=False)
+    out.append(f"<p>{sp.n_specimens} specimens: {sp.n_failed} failed "
+               f"({sp.n_unidentified} with the origin unidentified, {sp.n_ambiguous} ambiguous), "
+               f"{sp.n_survived} survived.</p>")
+    out.append(_accounting_html(sp))
+    out.append("<p>Origin as written → how it was read → population:</p>" + _table(counts, index=False))
+    return out
+
+
+def section_probability_plot(a: Analysis, figs, tables) -> list[str]:
+    from . import plots
+
+    main = a.main
+    return ["<h2>2. Probability plot</h2>",
+            figs.add("probability_plot", plots.probability_plot(main).figure,
+                     "Every specimen by fracture origin. Each population's failures sit at Johnson adjusted ranks "
+                     "(other failures and survivors suspended); each dashed line is that population's own fit, "
+                     "with its own band."),
+            figs.add("probability_plot_all", plots.probability_plot(main, view="all").figure,
+                     "All failures ranked together, with the combined model curve and its band: the kink of "
+                     "competing populations; dotted lines mark where the dominating population changes.")]
+
+
+def section_estimates(a: Analysis, figs, tables) -> list[str]:
+    from . import plots
+
+    main, mle = a.main, a.mle
+    out = ["<h2>3. Estimates per population</h2>"]
+    main.summary(full=True).to_csv(tables / "estimates.csv")
+    out.append(_table(main.summary(), kinds={"failures": "count"}))
+    kind = "credible (equal-tailed, posterior)" if main.method == "bayes" else \
+        "profile likelihood" if main.populations[0].interval_method == "profile" else main.populations[0].interval_method
+    out.append(f"<p>Model: {_esc(main.model)}; method: {_esc(main.method)}; intervals: {_esc(kind)}, "
+               f"{_esc(fmt.level(a.confidence, 'two-sided'))}. Log-likelihood {fmt.score(mle.log_likelihood)}, "
+               f"AIC {fmt.score(mle.aic)}, BIC {fmt.score(mle.bic)}.</p>")
+    if main.method == "bayes":
+        d = main.extras["diagnostics"]
+        out.append(f"<p>Sampler: {main.extras['walkers']} walkers, {main.extras['steps']} steps kept; "
+                   f"largest R-hat {d['r_hat_max']:.3f}, smallest bulk ESS {d['ess_bulk_min']:.0f}, "
+                   f"smallest tail ESS {d['ess_tail_min']:.0f}. Priors: "
+                   + "; ".join(_esc(f"{p['population']}: m {p['modulus']}, σθ {p['characteristic_strength']}")
+                               for p in main.priors) + ".</p>")
+        out.append(figs.add("posterior_pairs", plots.pair_plot(main), "Posterior draws of every parameter."))
+    for t in mle.tests:
+        out.append(f"<p>Test {_esc(t.name)}: statistic {t.statistic:.2f}, {t.df} degrees of freedom, "
+                   f"p = {fmt.p_value(t.p_value)}. {_esc(t.meaning)}</p>")
+    for name in plots.contour_populations(mle):
+        try:
+            ax = plots.likelihood_contour_plot(mle, name)
+        except FlawmixError:
+            continue
+        out.append(figs.add(f"likelihood_{_safe(name)}", ax.figure, f"Likelihood contours of population '{name}'."))
+    return out
+
+
+def section_comparison(a: Analysis, figs, tables) -> list[str]:
+    c = a.comparison
+    if c is None:
+        return []
+    out = ["<h2>4. One population or several, and how do they share specimens?</h2>"]
+    table = c.table.drop(columns=[x for x in ("pareto_k_bad", "degenerate") if x in c.table])
+    table.to_csv(tables / "model_comparison.csv")
+    out.append(_table(table))
+    out.append(f'<p class="verdict">{_esc(c.verdict)}</p>')
+    for t in c.tests:
+        out.append(f"<p>Test {_esc(t.name)}: statistic {t.statistic:.2f}, p = {fmt.p_value(t.p_value)} "
+                   f"({_esc(t.method)}). {_esc(t.meaning)}</p>")
+    return out
+
+
+def section_limits(a: Analysis, figs, tables) -> list[str]:
+    from . import plots
+    from .bottomline import dominance_changes
+
+    main = a.main
+    out = ["<h2>5. Which flaw population limits strength, and what removing it would gain</h2>"]
+    if not main.model.startswith("concurrent"):
+        return out + [f"<p>Scaling and what-if analyses use the concurrent model; this fit is "
+                      f"'{_esc(main.model)}'.</p>"]
+    if a.component is not None:
+        cname, body = a.component
+        out.append(figs.add("failure_shares", plots.failure_share_plot(main, coupon=a.coupon, component=body,
+                                                                      component_name=cname).figure,
+                            f"Share of failures from each population: test specimen (solid) and {cname} (dashed)."))
+    else:
+        out.append(figs.add("failure_shares", plots.failure_share_plot(main).figure,
+                            "Share of failures from each population across stress."))
+    names = [p.name for p in main.populations]
+    s = main.specimens.strength
+    sides = [("test specimen", dominance_changes(main.moduli, main.characteristic_strengths, names,
+                                                 s.min() / 10, s.max() * 2))]
+    if a.prediction is not None:
+        p = a.prediction
+        sides.append((p.component_name, dominance_changes(p.moduli, p.component_strengths, names,
+                                                          s.min() / 100, s.max() * 2)))
+    for where, cross in sides:
+        for c in cross:
+            out.append(f"<p>{_esc(where)}: <b>{_esc(c['below'])}</b> dominates below "
+                       f"{fmt.stress(c['stress'])} {_esc(main.unit)}, <b>{_esc(c['above'])}</b> above.</p>")
+    if a.what_if is not None:
+        table = a.what_if.reset_index()
+        table.to_csv(tables / "what_if.csv", index=False)
+        level = fmt.level(a.confidence)
+        table = table.rename(columns={"before": f"stress before ({main.unit})", "after": f"stress after ({main.unit})",
+                                      "gain low (%)": f"gain {level} low (%)", "gain high (%)": f"gain {level} high (%)"})
+        out.append("<p>Stress at a given failure probability after each change, alone and combined (a population "
+                   "removed, e.g. pores by hot isostatic pressing; a risk halved, e.g. grinding damage by a finer "
+                   "finish):</p>")
+        out.append(_table(table, index=False, kinds={"failure probability": "probability"}))
+    return out
+
+
+def section_component(a: Analysis, figs, tables) -> list[str]:
+    from . import plots
+
+    p = a.prediction
+    if p is None:
+        return []
+    name = p.component_name
+    level = fmt.level(p.confidence)
+    out = [f"<h2>6. The component: {_esc(name)}</h2>"]
+    out.append(_table(pd.DataFrame({"population": p.populations, "modulus": p.moduli,
+                                    "σθ test specimen": p.specimen_strengths,
+                                    f"σθ {name}": p.component_strengths}), index=False))
+    p.probabilities.to_csv(tables / "component_failure_probability.csv")
+    p.strengths_at.to_csv(tables / "component_strength_at_probability.csv")
+    rename = {c: c.replace(" low", f" {level} low").replace(" high", f" {level} high") for c in p.probabilities}
+    out.append(f"<p>Failure probability at the component's reference (largest) stress"
+               + ("" if p.intervals == "none" else f"; intervals from {_esc(p.intervals)} draws") + ":</p>")
+    out.append(_table(p.probabilities.rename(columns=rename), kinds={c: "probability" for c in rename.values()},
+                      index_kind="stress"))
+    out.append("<p>Reference stress at a given failure probability:</p>")
+    out.append(_table(p.strengths_at.rename(columns=rename), kinds={c: "stress" for c in rename.values()},
+                      index_kind="probability"))
+    out.append(figs.add("size_effect", plots.size_effect_plot(a.main, a.coupon, a.component[1],
+                                                              component_name=name).figure,
+                        "Characteristic strength against effective size: each population scales with its own "
+                        "measure and modulus."))
+    return out
+
+
+def section_methods(a: Analysis, figs, tables) -> list[str]:
+    out = ["<h2>Methods and references</h2><ul>",
+           "<li>Competing-risk censored maximum likelihood: each failure contributes the hazard of its "
+           "origin population (the sum over candidates when the origin is unidentified or ambiguous), "
+           "every specimen the survival of all populations; survivors only the survival.</li>",
+           "<li>Intervals: pivotal bounds by seeded Monte Carlo for one complete population, profile "
+           "likelihood otherwise; Bayesian equal-tailed credible intervals from emcee draws; component "
+           "predictions from parametric-bootstrap or posterior draws.</li>",
+           "<li>Model comparison: AIC, BIC and PSIS-LOO on the same data with origin labels; boundary "
+           "tests by parametric bootstrap.</li>",
+           "<li>Size scaling: each population with its own effective volume, area or edge length; multiaxial "
+           "stress states by the principle of independent action or the largest principal stress.</li></ul>",
+           "<ol>" + "".join(f"<li>{_esc(r)}</li>" for r in REFERENCES) + "</ol>"]
+    return out
+
+
+def section_software(a: Analysis, figs, tables) -> list[str]:
+    return ["<h2>Software</h2><p>" + ", ".join(f"{_esc(k)} {_esc(v)}" for k, v in _versions().items())
+            + f"; seed {a.seed}.</p>"]
+
+
+def section_warnings(a: Analysis, figs, tables) -> list[str]:
+    warn = list(dict.fromkeys([*a.mle.warnings, *(a.main.warnings if a.main is not a.mle else [])]))
+    if not warn:
+        return []
+    return ["<h2>Warnings</h2><ul>" + "".join(f"<li>{_esc(w)}</li>" for w in warn) + "</ul>"]
+
+
+def section_cautions(a: Analysis, figs, tables) -> list[str]:
+    return ["<h2>Cautions</h2>" + "".join(f'<p class="caution">{_esc(c)}</p>' for c in CAUTIONS)]
+
+
+SECTIONS = [section_bottom_line, section_data, section_probability_plot, section_estimates, section_comparison,
+            section_limits, section_component, section_methods, section_software, section_warnings,
+            section_cautions]
+
+
 def _json_default(x):
     if isinstance(x, (np.floating, np.integer)):
         return x.item()
@@ -404,12 +547,6 @@ def _json_default(x):
 
 def _safe(name: str) -> str:
     return "".join(ch if ch.isalnum() else "_" for ch in name)[:40]
-
-
-def _crossovers(result):
-    from .predict import crossovers
-
-    return crossovers(result.moduli, result.characteristic_strengths, [p.name for p in result.populations])
 
 
 def _accounting_html(specimens) -> str:

@@ -276,6 +276,21 @@ class FitResult:
                 point = np.median(samples, axis=0)
         return _summary_frame(samples, point, self.confidence, pd.Index(s), f"stress ({self.unit})")
 
+    def population_failure_probability(self, name: str, stress, approximate: bool = False) -> pd.DataFrame:
+        """Failure probability of a test specimen from population ``name`` acting alone, at
+        each stress, with its interval when the fit carries draws (``approximate=True``: a
+        plain MLE uses its normal-approximation draws). For the population's own band."""
+        j = [p.name for p in self.populations].index(self.population(name).name)
+        s = np.atleast_1d(np.asarray(stress, dtype=float))
+        p = self.populations[j]
+        point = 1.0 - np.exp(-dist.weibull_cumulative_hazard(s, p.modulus, p.characteristic_strength))
+        d = self.parameter_draws() if approximate else self.draws
+        samples = None
+        if d is not None:
+            samples = 1.0 - np.exp(-dist.weibull_cumulative_hazard(s[None, :], d.moduli[:, j:j + 1],
+                                                                   d.scales[:, j:j + 1]))
+        return _summary_frame(samples, point, self.confidence, pd.Index(s), f"stress ({self.unit})")
+
     def strength_at(self, probability) -> pd.DataFrame:
         """Stress at which a test specimen's failure probability equals each ``probability``."""
         ps = np.atleast_1d(np.asarray(probability, dtype=float))
@@ -330,27 +345,51 @@ class FitResult:
         return _arviz.to_inference_data(post)
 
     # ---- presentation -----------------------------------------------------------------
-    def summary(self) -> pd.DataFrame:
-        """One row per population: estimates, intervals, counts."""
-        pct = f"{self.confidence:.0%}"
+    def summary(self, full: bool = False) -> pd.DataFrame:
+        """One row per population: modulus and characteristic strength with their interval
+        bounds (columns named by percentile: ``m 5%``/``m 95%`` for 90 % intervals), rounded to
+        the digits that mean something so it displays whole at the default pandas width.
+
+        ``full=True``: every column (expected failures, unbiased modulus, fraction, interval
+        method) at full precision, as the report's estimates.csv."""
+        from . import formatting as fmt
+
+        lo_pct = f"{100 * (1 - self.confidence) / 2:g}%"
+        hi_pct = f"{100 * (1 + self.confidence) / 2:g}%"
         rows = []
         for p in self.populations:
-            rows.append({
-                "population": p.name,
-                "kind": p.kind,
-                "failures": p.n_failures,
-                "expected failures": round(p.expected_failures, 2),
-                "modulus": p.modulus,
-                f"modulus {pct} low": p.modulus_interval[0],
-                f"modulus {pct} high": p.modulus_interval[1],
-                f"characteristic strength ({self.unit})": p.characteristic_strength,
-                f"strength {pct} low": p.strength_interval[0],
-                f"strength {pct} high": p.strength_interval[1],
-                "unbiased modulus": p.modulus_unbiased,
-                "fraction": p.fraction,
-                "interval method": p.interval_method,
-            })
-        return pd.DataFrame(rows).set_index("population")
+            if full:
+                pct = f"{self.confidence:.0%}"
+                rows.append({
+                    "population": p.name, "kind": p.kind, "failures": p.n_failures,
+                    "expected failures": round(p.expected_failures, 2), "modulus": p.modulus,
+                    f"modulus {pct} low": p.modulus_interval[0], f"modulus {pct} high": p.modulus_interval[1],
+                    f"characteristic strength ({self.unit})": p.characteristic_strength,
+                    f"strength {pct} low": p.strength_interval[0], f"strength {pct} high": p.strength_interval[1],
+                    "unbiased modulus": p.modulus_unbiased, "fraction": p.fraction,
+                    "interval method": p.interval_method,
+                })
+                continue
+            m = lambda x: float(fmt.modulus(x)) if x is not None and math.isfinite(x) else x
+            st = lambda x: float(fmt.stress(x)) if x is not None and math.isfinite(x) else x
+            row = {"population": p.name, "kind": p.kind, "failures": p.n_failures, "m": m(p.modulus),
+                   f"m {lo_pct}": m(p.modulus_interval[0]), f"m {hi_pct}": m(p.modulus_interval[1]),
+                   f"σθ ({self.unit})": st(p.characteristic_strength), f"σθ {lo_pct}": st(p.strength_interval[0]),
+                   f"σθ {hi_pct}": st(p.strength_interval[1])}
+            if not self.model.startswith("concurrent"):
+                row["fraction"] = round(p.fraction, 3)
+            rows.append(row)
+        frame = pd.DataFrame(rows).set_index("population")
+        frame.attrs["confidence"] = self.confidence
+        return frame
+
+    def __repr__(self) -> str:
+        from . import formatting as fmt
+
+        pops = "; ".join(f"{p.name} m {fmt.modulus(p.modulus)}, σθ {fmt.stress(p.characteristic_strength)}"
+                         for p in self.populations)
+        return (f"<FitResult {self.model} {self.method}, {self.n_specimens} specimens, {self.unit}: {pops}; "
+                f"print() for the full text, .summary() for a table>")
 
     def to_dict(self) -> dict[str, Any]:
         """Plain JSON-ready dictionary (schema documented in README.md)."""
@@ -397,9 +436,12 @@ def _fmt(x: float | None, digits: int = 4) -> str:
     return f"{x:.{digits}g}"
 
 
-def format_result(r: FitResult) -> str:
-    """A readable plain-text report of a fit."""
-    pct = f"{r.confidence:.0%}"
+def format_result(r: FitResult, warnings: bool = True) -> str:
+    """A readable plain-text report of a fit (``warnings=False``: without its warning lines,
+    for callers that print warnings elsewhere, once)."""
+    from . import formatting as fmt
+
+    level = fmt.level(r.confidence)
     lines = [
         f"flawmix: {r.model} populations, {r.method.upper() if r.method == 'mle' else r.method} fit"
         + (f" of {r.source}" if r.source else ""),
@@ -407,16 +449,16 @@ def format_result(r: FitResult) -> str:
         f"ambiguous {r.n_ambiguous}), survived {r.n_survived}; stress unit {r.unit}",
         "",
     ]
-    header = (f"{'population':<18}{'kind':<12}{'fail':>5}{'exp.':>7}  {'modulus':>8}  {pct + ' interval':<19}"
-              f"{'σθ':>9}  {pct + ' interval':<21}{'m unbiased':>10}")
+    header = (f"{'population':<18}{'kind':<10}{'failures':>9}{'expected':>9}  {'modulus':>7}  {'(' + level + ')':<20}"
+              f"{'σθ':>8}  {'(' + level + ')':<18}{'m unbiased':>10}")
     lines.append(header)
     lines.append("-" * len(header))
     for p in r.populations:
-        mi = f"[{_fmt(p.modulus_interval[0], 3)}, {_fmt(p.modulus_interval[1], 3)}]"
-        si = f"[{_fmt(p.strength_interval[0])}, {_fmt(p.strength_interval[1])}]"
+        mi = fmt.interval(*p.modulus_interval, kind=fmt.modulus)
+        si = fmt.interval(*p.strength_interval)
         lines.append(
-            f"{p.name[:17]:<18}{p.kind:<12}{p.n_failures:>5}{p.expected_failures:>7.1f}  {_fmt(p.modulus):>8}  {mi:<19}"
-            f"{_fmt(p.characteristic_strength):>9}  {si:<21}{_fmt(p.modulus_unbiased):>10}"
+            f"{p.name[:17]:<18}{p.kind:<10}{p.n_failures:>9}{p.expected_failures:>9.1f}  {fmt.modulus(p.modulus):>7}  "
+            f"{mi:<20}{fmt.stress(p.characteristic_strength):>8}  {si:<18}{fmt.modulus(p.modulus_unbiased):>10}"
         )
     if not r.model.startswith("concurrent"):
         lines.append("")
@@ -428,14 +470,16 @@ def format_result(r: FitResult) -> str:
                          f"only a fraction carries {r.partial_population})")
     methods = sorted({p.interval_method for p in r.populations})
     lines.append("")
-    lines.append(f"intervals: {', '.join(methods)}; log-likelihood {r.log_likelihood:.4f}, "
-                 f"AIC {r.aic:.2f}, BIC {r.bic:.2f} ({r.n_parameters} parameters)")
+    lines.append(f"intervals: {', '.join(methods)}; log-likelihood {r.log_likelihood:.2f}, "
+                 f"AIC {r.aic:.1f}, BIC {r.bic:.1f} ({r.n_parameters} parameters)")
     reg = [p for p in r.populations if p.regression_modulus is not None]
     if reg:
         lines.append(f"graphical estimate (least squares on the probability plot, {r.plotting_rule} positions): "
-                     + "; ".join(f"{p.name} m={_fmt(p.regression_modulus, 3)} σθ={_fmt(p.regression_strength)}" for p in reg))
+                     + "; ".join(f"{p.name} m = {fmt.modulus(p.regression_modulus)}, σθ = {fmt.stress(p.regression_strength)}"
+                                 for p in reg))
     for t in r.tests:
-        lines.append(f"test {t.name}: statistic {t.statistic:.3f}, df {t.df}, p = {t.p_value:.3g} ({t.method}). {t.meaning}")
+        lines.append(f"test {t.name}: statistic {t.statistic:.2f}, {t.df} degree(s) of freedom, "
+                     f"p = {fmt.p_value(t.p_value)} ({t.method}). {t.meaning}")
     if "reference_geometry" in r.extras:
         lines.append(f"σθ above refers to geometry '{r.extras['reference_geometry']}'; by geometry: "
                      + "; ".join(f"{g}: " + ", ".join(f"{n} {_fmt(v)}" for n, v in d.items())
@@ -455,7 +499,7 @@ def format_result(r: FitResult) -> str:
         lines.append(f"PSIS-LOO: elpd {r.extras['elpd_loo']:.2f} ± {r.extras['elpd_loo_se']:.2f}")
     if not r.converged and r.method == "mle":
         lines.append("WARNING: the maximisation did not reach the convergence tolerance; treat estimates with care.")
-    for w in r.warnings:
+    for w in (r.warnings if warnings else ()):
         lines.append(f"warning: {w}")
     return "\n".join(lines)
 

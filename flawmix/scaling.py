@@ -19,7 +19,20 @@ from scipy import integrate, special
 from .errors import FlawmixError
 from .units import length_factor, length_unit
 
-MULTIAXIAL_RULES = ("largest", "pia")
+# Multiaxial rules, spelled out; the trade's short forms stay accepted.
+MULTIAXIAL_RULES = ("independent-action", "largest-principal")
+RULE_ALIASES = {"pia": "independent-action", "principle-of-independent-action": "independent-action",
+                "largest": "largest-principal", "largest-principal-stress": "largest-principal"}
+
+
+def multiaxial_rule(name: str) -> str:
+    """The spelled-out name of a multiaxial rule (``pia`` → ``independent-action``)."""
+    key = str(name).strip().lower().replace("_", "-").replace(" ", "-")
+    key = RULE_ALIASES.get(key, key)
+    if key not in MULTIAXIAL_RULES:
+        raise FlawmixError(f"unknown multiaxial rule '{name}'; use independent-action (principle of independent "
+                           "action, also 'pia') or largest-principal (largest principal stress, also 'largest')")
+    return key
 
 
 @dataclass(frozen=True)
@@ -201,24 +214,23 @@ class RingOnRing:
         M0 = self._moments(np.array([0.0]))[0][0]
         return float(6 * load / (2 * math.pi) * M0 / self.thickness**2)
 
-    def effective_size(self, modulus, rule="pia", unit="mm") -> EffectiveSize:
+    def effective_size(self, modulus, rule="independent-action", unit="mm") -> EffectiveSize:
         """Effective area (tensile face) and volume (tensile half of the thickness).
 
-        rule: ``pia`` (principle of independent action: Σ over positive principal stresses)
-        or ``largest`` (largest principal stress only)."""
+        rule: ``independent-action`` (principle of independent action, ``pia``: Σ over positive
+        principal stresses) or ``largest-principal`` (largest principal stress only, ``largest``)."""
         _check_positive(modulus=modulus)
-        if rule not in MULTIAXIAL_RULES:
-            raise FlawmixError(f"unknown multiaxial rule '{rule}'; use {' or '.join(MULTIAXIAL_RULES)}")
+        rule = multiaxial_rule(rule)
         m = float(modulus)
         a, b, R = self.load_radius, self.support_radius, self.disc_radius
 
         def integrand(r):
             sr, st = self.relative_stresses(np.array([r]))
             sr, st = max(float(sr[0]), 0.0), max(float(st[0]), 0.0)
-            g = sr**m + st**m if rule == "pia" else max(sr, st) ** m
+            g = sr**m + st**m if rule == "independent-action" else max(sr, st) ** m
             return g * 2 * math.pi * r
 
-        inner = (2.0 if rule == "pia" else 1.0) * math.pi * a * a
+        inner = (2.0 if rule == "independent-action" else 1.0) * math.pi * a * a
         ring, _ = integrate.quad(integrand, a, b, limit=200, epsabs=0, epsrel=1e-11)
         over, _ = integrate.quad(integrand, b, R, limit=200, epsabs=0, epsrel=1e-11) if R > b else (0.0, 0.0)
         area = inner + ring + over
@@ -228,7 +240,7 @@ class RingOnRing:
 
 
 def ring_on_ring(modulus, load_radius, support_radius, disc_radius, thickness, poisson=0.25,
-                 rule="pia", unit="mm") -> EffectiveSize:
+                 rule="independent-action", unit="mm") -> EffectiveSize:
     return RingOnRing(load_radius, support_radius, disc_radius, thickness, poisson).effective_size(modulus, rule, unit)
 
 
@@ -251,16 +263,16 @@ class ElementTable:
     def reference_stress(self) -> float:
         return float(self.stresses.max())
 
-    def effective(self, modulus: float, rule: str = "pia", reference_stress: float | None = None) -> float:
-        """∫ g(σ)/σ_ref^m over the elements: g = Σ σ_i+^m (pia) or max(σ_i)+^m (largest)."""
-        if rule not in MULTIAXIAL_RULES:
-            raise FlawmixError(f"unknown multiaxial rule '{rule}'; use {' or '.join(MULTIAXIAL_RULES)}")
+    def effective(self, modulus: float, rule: str = "independent-action", reference_stress: float | None = None) -> float:
+        """∫ g(σ)/σ_ref^m over the elements: g = Σ σ_i+^m (independent action) or max(σ_i)+^m (largest principal)."""
+        rule = multiaxial_rule(rule)
         ref = reference_stress or self.reference_stress
         rel = np.clip(self.stresses / ref, 0.0, None)
-        g = (rel ** modulus).sum(axis=1) if rule == "pia" else rel.max(axis=1) ** modulus
+        g = (rel ** modulus).sum(axis=1) if rule == "independent-action" else rel.max(axis=1) ** modulus
         return float(np.dot(self.size, g))
 
-    def effective_size(self, modulus, rule="pia") -> EffectiveSize:
+    def effective_size(self, modulus, rule="independent-action") -> EffectiveSize:
+        rule = multiaxial_rule(rule)
         value = self.effective(modulus, rule)
         return EffectiveSize(float(modulus), value if self.kind == "volume" else None,
                              value if self.kind == "area" else None, None, self.unit, "elements", rule)
@@ -330,7 +342,7 @@ GEOMETRIES: dict[str, tuple[Callable, tuple[str, ...]]] = {
     "tension-round": (lambda m, **k: tension_rod(m, k["diameter"], k["gauge_length"], k.get("unit", "mm")),
                       ("diameter", "gauge_length")),
     "ring-on-ring": (lambda m, **k: ring_on_ring(m, k["load_radius"], k["support_radius"], k["disc_radius"],
-                                                 k["thickness"], k.get("poisson", 0.25), k.get("rule", "pia"),
+                                                 k["thickness"], k.get("poisson", 0.25), k.get("rule", "independent-action"),
                                                  k.get("unit", "mm")),
                      ("load_radius", "support_radius", "disc_radius", "thickness")),
 }
@@ -343,7 +355,7 @@ def effective_size(geometry: str, modulus: float, **dimensions) -> EffectiveSize
         table = dimensions.get("table")
         if not isinstance(table, ElementTable):
             table = read_elements(table, dimensions.get("unit", "mm"))
-        return table.effective_size(modulus, dimensions.get("rule", "pia"))
+        return table.effective_size(modulus, dimensions.get("rule", "independent-action"))
     if geometry not in GEOMETRIES:
         raise FlawmixError(f"unknown geometry '{geometry}'; use one of {', '.join([*GEOMETRIES, 'elements'])}")
     fn, needed = GEOMETRIES[geometry]

@@ -93,6 +93,13 @@ class Specimens:
     accounting: dict | None = field(default=None, compare=False)
     warnings: tuple[str, ...] = field(default=(), compare=False)
 
+    def __repr__(self) -> str:
+        pops = ", ".join(f"{p.name} ({p.kind})" for p in self.populations)
+        src = f" from {Path(self.source).name}" if self.source else ""
+        return (f"<Specimens{src}: {self.n_specimens} specimens ({self.n_failed} failed, {self.n_survived} survived; "
+                f"origin unidentified {self.n_unidentified}, ambiguous {self.n_ambiguous}), unit {self.unit}; "
+                f"populations {pops}>")
+
     def __post_init__(self):
         for name in ("strength", "failed", "candidates"):
             object.__setattr__(self, name, _read_only(np.asarray(getattr(self, name))))

@@ -25,6 +25,7 @@ from .vocabulary import UNCERTAIN_CHOICES
 from .specimens import Population, make_populations, suggest
 from .units import stress_unit
 
+LOAD_KEYS = ("stress", "target_probability")   # [component] keys that describe the analysed load
 KNOWN_KEYS = {"unit", "confidence", "specimens", "populations", "geometries", "component",
               "seed", "title", "length_unit", "geometry", "sheet", "unidentified_words", "origin_separators",
               "uncertain_origins"}
@@ -99,6 +100,21 @@ class Study:
                 raise FlawmixError(f"{self.path}: {exc}") from None
         return out
 
+    def component_load(self) -> dict:
+        """The analysed load of the [component] table: ``stress`` (its reference, largest,
+        stress) and/or ``target_probability``; empty when the study gives neither."""
+        out = {}
+        for key in LOAD_KEYS:
+            if self.component and key in self.component:
+                value = self.component[key]
+                ok = isinstance(value, (int, float)) and not isinstance(value, bool) and value > 0
+                if not ok or (key == "target_probability" and not value < 1):
+                    raise FlawmixError(f"{self.path}: [component] {key} = {value!r}: write a positive number"
+                                       + (" below 1, like 1e-4" if key == "target_probability" else
+                                          f" in the study's stress unit, like 150"))
+                out[key] = float(value)
+        return out
+
     def component_object(self):
         """The [component] table as a Geometry (None when the study has none)."""
         from .geometry import Geometry
@@ -107,6 +123,8 @@ class Study:
             return None
         spec = dict(self.component)
         name = spec.pop("name", "component")
+        for key in LOAD_KEYS:   # the analysed load, not a dimension of the part
+            spec.pop(key, None)
         try:
             return name, Geometry.from_spec(name, spec, self.path.parent if self.path else None,
                                             self.length_unit or "mm")

@@ -56,7 +56,7 @@ def test_cli_compare_json(tmp_path):
     sims = simulate(lik.Model("concurrent", 2), [4.0, 20.0], [420.0, 400.0], None, Design.simple(40, 0.2), 1, rng)
     p = tmp_path / "bars.csv"
     _frame(replicate(sims, 0)).to_csv(p, index=False)
-    proc = subprocess.run([sys.executable, "-m", "flawmix", "compare", str(p), "--no-bayes", "--bootstrap", "0", "--json"],
+    proc = subprocess.run([sys.executable, "-m", "flawmix", "compare", str(p), "--no-bayes", "--boundary-replicates", "0", "--json"],
                           capture_output=True, text=True)
     assert proc.returncode == 0, proc.stderr
     d = json.loads(proc.stdout)

@@ -23,7 +23,7 @@ def demo_report(tmp_path_factory):
     study = read_study(toml)
     sp = fm.read_specimens(csv, study.populations, study.unit)
     out = tmp_path_factory.mktemp("rep") / "report"
-    write_report(sp, out, study=study, bayes=False, bootstrap=0, seed=1)
+    write_report(sp, out, study=study, bayes=False, boundary_replicates=0, seed=1)
     return out
 
 
@@ -51,7 +51,7 @@ def test_user_text_is_escaped(tmp_path):
                                      "pore", "<img src=x onerror=alert(1)>"]})
     path = tmp_path / "evil.csv"
     frame.to_csv(path, index=False)
-    write_report(fm.read_specimens(path), tmp_path / "out", bayes=False, bootstrap=0)
+    write_report(fm.read_specimens(path), tmp_path / "out", bayes=False, boundary_replicates=0)
     page = (tmp_path / "out" / "report.html").read_text()
     assert "<script" not in page and "<img src=x" not in page
     assert "&lt;img src=x onerror=alert(1)&gt;" in page
@@ -63,7 +63,7 @@ def test_existing_folder_needs_force_and_failures_leave_it_intact(tmp_path, demo
     (out / "keep.txt").write_text("mine")
     sp = fm.read_specimens(demo_paths()[0])
     with pytest.raises(fm.FlawmixError, match="--force"):
-        write_report(sp, out, bayes=False, bootstrap=0)
+        write_report(sp, out, bayes=False, boundary_replicates=0)
     # a folder of other files is never wiped, not even with force
     with pytest.raises(fm.FlawmixError, match="not a flawmix report folder"):
         write_report(sp, out, force=True, compare_models=False)
