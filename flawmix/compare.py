@@ -19,8 +19,8 @@ from scipy import stats as _sstats
 
 from . import likelihood as lik
 from . import progress as _progress
-from .errors import FlawmixError, FlawmixWarning
-from .evidence import evidence_words, loo_words, verdict_sentence
+from .errors import FlawmixWarning
+from .evidence import loo_words
 from .result import FitResult, HypothesisTest, _num
 from .simulate import Design, replicate, simulate
 from .specimens import Specimens
@@ -216,7 +216,6 @@ def _verdict(table, order, bayes, bayes_fits, specimens) -> str:
         diff = a - b
         delta = float(diff.sum())
         se = float(math.sqrt(diff.size * np.var(diff))) if diff.size > 1 else float("nan")
-        z = delta / se if se > 0 else float("inf")
         words = loo_words(delta, se)
         text = (f"By leave-one-out predictive accuracy (PSIS-LOO) the '{best}' model is preferred over "
                 f"'{second}' by {delta:.1f} ± {se:.1f} in expected log predictive density: {words}.")

@@ -161,7 +161,7 @@ def concurrent_derivatives(data: Data, theta: np.ndarray) -> tuple[float, np.nda
     return ll, grad, hess
 
 
-def concurrent_derivatives_batch(data: lik.Data, theta: np.ndarray):
+def concurrent_derivatives_batch(data: Data, theta: np.ndarray):
     """Log-likelihood (R,), gradient (R, 2k) and Hessian (R, 2k, 2k) of the concurrent model
     for R data sets (data arrays with leading dim R) at parameter sets theta (R, 2k).
 

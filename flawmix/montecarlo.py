@@ -6,7 +6,6 @@ or a dask.distributed client's ``get_executor()``).
 """
 from __future__ import annotations
 
-import sys
 from dataclasses import dataclass
 
 import numpy as np

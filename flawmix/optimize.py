@@ -167,7 +167,7 @@ def _one_side(profile, cut, center, direction, se, limits, problems) -> float:
     """Bracket and solve one end of a profile interval (see :func:`profile_interval`)."""
     limit = limits[0] if direction < 0 else limits[1]
     step = 2.0 * se
-    prev, f_prev = center, np.inf
+    prev = center
     found = None
     for _ in range(60):
         t = center + direction * step
@@ -181,7 +181,7 @@ def _one_side(profile, cut, center, direction, se, limits, problems) -> float:
             break
         if t == limit:
             return direction * np.inf      # the data do not bound this side
-        prev, f_prev = t, f
+        prev = t
         step *= 1.6
     if found is None:
         if problems is not None:

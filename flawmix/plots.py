@@ -351,6 +351,9 @@ def likelihood_contour_plot(result, population: str, ax=None, levels=(0.5, 0.9, 
     (xlo, xhi), (ylo, yhi) = _contour_window(p, result.confidence)
     ax.set_xlim(max(xlo, s.min()), min(xhi, s.max()))
     ax.set_ylim(max(ylo, m.min()), min(yhi, m.max()))
+    from matplotlib.ticker import MaxNLocator
+    # drop the x tick nearest the left corner so its label never meets the lowest m label
+    ax.xaxis.set_major_locator(MaxNLocator(nbins=6, prune="lower"))
     ax.set_xlabel(f"characteristic strength σθ ({result.unit})")
     ax.set_ylabel("Weibull modulus m")
     ax.set_title(f"Likelihood contours, '{population}' ({p.n_failures} failures; others at their estimates)",

@@ -218,7 +218,7 @@ def analyse(specimens, *, study=None, method="mle", compare_models=True, bayes=T
     sized = study.fit_geometries(specimens) if study else None
     with _warnings.catch_warnings():
         _warnings.simplefilter("ignore", FlawmixWarning)
-        with progress.task("fitting (maximum likelihood)") as bar:
+        with progress.task("fitting (maximum likelihood)"):
             mle = fit(specimens, confidence=conf, geometries=sized,
                       **({"bootstrap": bootstrap, "seed": seed} if bootstrap and not sized else {}))
         main = fit(specimens, method="bayes", confidence=conf, seed=seed,
@@ -486,7 +486,7 @@ def section_component(a: Analysis, figs, tables) -> list[str]:
     p.probabilities.to_csv(tables / "component_failure_probability.csv")
     p.strengths_at.to_csv(tables / "component_strength_at_probability.csv")
     rename = {c: c.replace(" low", f" {level} low").replace(" high", f" {level} high") for c in p.probabilities}
-    out.append(f"<p>Failure probability at the component's reference (largest) stress"
+    out.append("<p>Failure probability at the component's reference (largest) stress"
                + ("" if p.intervals == "none" else f"; intervals from {_esc(p.intervals)} draws") + ":</p>")
     out.append(_table(p.probabilities.rename(columns=rename), kinds={c: "probability" for c in rename.values()},
                       index_kind="stress"))

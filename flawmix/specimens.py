@@ -6,6 +6,7 @@ failed, and for each failure the set of populations that could have caused it.
 from __future__ import annotations
 
 import difflib
+from pathlib import Path
 from dataclasses import dataclass, field
 from typing import Mapping
 

@@ -111,7 +111,7 @@ class Study:
                 if not ok or (key == "target_probability" and not value < 1):
                     raise FlawmixError(f"{self.path}: [component] {key} = {value!r}: write a positive number"
                                        + (" below 1, like 1e-4" if key == "target_probability" else
-                                          f" in the study's stress unit, like 150"))
+                                          " in the study's stress unit, like 150"))
                 out[key] = float(value)
         return out
 
