@@ -461,7 +461,8 @@ def format_result(r: FitResult, warnings: bool = True) -> str:
             f"{p.name[:17]:<18}{p.kind:<10}{p.n_failures:>9}{p.expected_failures:>9.1f}  {fmt.modulus(p.modulus):>7}  "
             f"{mi:<20}{fmt.stress(p.characteristic_strength):>8}  {si:<18}"
             + (f"{fmt.modulus(p.modulus_unbiased):>10}" if unbiased else "")
-        ).rstrip()
+        )
+        lines[-1] = lines[-1].rstrip()
     if not r.model.startswith("concurrent"):
         lines.append("")
         for p in r.populations:
