@@ -176,10 +176,15 @@ def read_study(path) -> Study:
     if not isinstance(geometries, dict):
         raise FlawmixError(f"{path}: 'geometries' must be tables [geometries.NAME]")
     component = raw.get("component")
-    return Study(**_table_keys(path, raw), populations=pops, unit=unit, confidence=confidence, specimens=specimens,
-                 title=raw.get("title"), seed=raw.get("seed"), length_unit=raw.get("length_unit"),
-                 geometries=geometries, component=component, priors=priors, path=path,
-                 geometry=raw.get("geometry"))
+    study = Study(**_table_keys(path, raw), populations=pops, unit=unit, confidence=confidence, specimens=specimens,
+                  title=raw.get("title"), seed=raw.get("seed"), length_unit=raw.get("length_unit"),
+                  geometries=geometries, component=component, priors=priors, path=path,
+                  geometry=raw.get("geometry"))
+    # a mistake in a geometry or the component must stop the run now, not after the fits
+    study.geometry_objects()
+    study.component_object()
+    study.component_load()
+    return study
 
 
 def _table_keys(path: Path, raw: dict) -> dict:
