@@ -326,7 +326,7 @@ def _specimen_rows(specimens, models, toughness, sizes, widths, locations, size_
             y[mine], point[mine] = model.factor(sizes[mine], widths[mine])
     implied = y * specimens.strength * to_mpa * np.sqrt(sizes * 1e-3)
     lo, hi = toughness.band
-    consistent = np.where(np.isfinite(implied), (implied >= lo) & (implied <= hi), None)
+    consistent = np.array([bool(lo <= k <= hi) if np.isfinite(k) else None for k in implied], dtype=object)
     notes, loc_ok = [], []
     for i in range(specimens.n_specimens):
         ok, note = _location_note(kinds.get(population[i], "unspecified"), locations[i]) \
@@ -344,7 +344,8 @@ def _specimen_rows(specimens, models, toughness, sizes, widths, locations, size_
     return pd.DataFrame({"specimen": specimens.ids, "strength": specimens.strength, "population": population,
                          "flaw size": sizes * size_out, "flaw width": widths * size_out, "location": locations,
                          "shape factor": y, "governing point": point, "implied toughness": implied,
-                         "consistent": consistent, "location consistent": loc_ok, "notes": notes})
+                         "consistent": consistent, "location consistent": np.array(loc_ok, dtype=object),
+                         "notes": notes})
 
 
 def _median_aspect(model: CrackModel, sizes, widths) -> float:
