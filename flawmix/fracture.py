@@ -254,6 +254,19 @@ class FlawAnalysis:
     stress: float | None = None
     component_stress: float | None = None
 
+    def critical_stress(self, population: str, sizes, toughness: float | None = None) -> np.ndarray:
+        """Stress (in ``unit``) at which flaws of the given sizes (``size_unit``) of a population
+        reach ``toughness`` (default K_Ic): σ = K/(Y(a)·√a), the σ ∝ a^(−1/2) line (bent by a/t)."""
+        if population not in self.models:
+            raise FlawmixError(f"no population '{population}'; the analysis has {', '.join(self.models)}")
+        model = self.models[population]
+        aspect = float(self.populations.loc[population, "aspect a/c"])
+        model = CrackModel(model.kind, model.loading, aspect, model.thickness, model.half_width, model.shape_factor)
+        a_mm = np.asarray(sizes, dtype=float) * length_factor(self.size_unit, "mm")
+        y, _ = model.factor(a_mm)
+        k = self.toughness.value if toughness is None else toughness
+        return k / (y * np.sqrt(a_mm * 1e-3)) * stress_factor("MPa", self.unit)
+
     @property
     def flagged(self) -> pd.DataFrame:
         """Specimens whose implied toughness disagrees with K_Ic or whose location does not fit."""
