@@ -328,6 +328,14 @@ class FitResult:
         frame.index.names = [f"stress ({self.unit})", "population"]
         return frame
 
+    def origin_probabilities(self, threshold: float = 0.05, method: str = "auto") -> pd.DataFrame:
+        """Probability of each population as the origin of every unidentified or ambiguous
+        failure, and of every written label with that label withheld (``check``: below
+        ``threshold``, re-examine that fracture surface). See :mod:`flawmix.origins`."""
+        from .origins import origin_probabilities
+
+        return origin_probabilities(self, threshold, method)
+
     @property
     def posterior(self):
         """The posterior as arviz InferenceData (arviz 0.x) or DataTree (1.x); Bayes fits only."""
@@ -418,6 +426,7 @@ class FitResult:
             **({"priors": list(self.priors)} if self.priors else {}),
             **{k: v for k, v in self.extras.items() if isinstance(v, (dict, list, str, int, float, type(None)))},
             **({"accounting": _accounting(self.specimens)} if self.specimens is not None else {}),
+            **_origin_keys(self),
         }
 
     def __str__(self) -> str:
@@ -505,6 +514,15 @@ def format_result(r: FitResult, warnings: bool = True) -> str:
     for w in (r.warnings if warnings else ()):
         lines.append(f"warning: {w}")
     return "\n".join(lines)
+
+
+def _origin_keys(result) -> dict:
+    """``origin_probabilities`` and ``origin_checks`` (flawmix.origins) when the result has specimens."""
+    if result.specimens is None:
+        return {}
+    from .origins import origin_export
+
+    return origin_export(result)
 
 
 def _accounting(specimens) -> dict:
