@@ -284,18 +284,10 @@ class LotModel:
 
 
 def lot_model(lots: Lots, geometries=None, force_general: bool = False) -> LotModel:
-    """Build the lot model of specimens in lots (geometries: as for :func:`flawmix.fit`)."""
+    """Build the lot model of specimens in lots (geometries: as for :func:`flawmix.fit`);
+    ``force_general`` evaluates even unsized lots through the one kL-copy model."""
     sp = lots.specimens
-    k, L = len(sp.populations), lots.n_lots
-    y = np.log(sp.strength)
-    centre = float(np.mean(y))
-    per_lot = tuple(lik.Data(y[lots.lot == l] - centre, sp.failed[lots.lot == l], sp.candidates[lots.lot == l])
-                    for l in range(L))
-    candidates = np.zeros((sp.n_specimens, k * L), dtype=bool)
-    for l in range(L):
-        mine = lots.lot == l
-        candidates[mine, l * k:(l + 1) * k] = sp.candidates[mine]
-    extras, base, group, G = {}, None, lots.lot, 1
+    base, group, G, extras = None, None, 1, {}
     if geometries:
         from .mle import sized_setup
 
@@ -303,19 +295,65 @@ def lot_model(lots: Lots, geometries=None, force_general: bool = False) -> LotMo
         G = len(gnames)
         group = lots.lot * G + gidx
         extras = {"reference_geometry": reference, "geometry_names": gnames, "geometries": geoms}
+    return model_from_arrays(np.log(sp.strength), sp.failed, sp.candidates, lots.lot, lots.n_lots, base, group, G,
+                             sized=bool(geometries) or force_general, extras=extras)
+
+
+def model_from_arrays(y, failed, candidates, lot, n_lots: int, size_offsets=None, group=None, n_geometries: int = 1,
+                      sized: bool = False, extras=None) -> LotModel:
+    """The lot model from arrays: y (N,) ln strength, failed (N,), candidates (N, k), lot (N,)
+    index; size_offsets/group/n_geometries as from :func:`flawmix.mle.sized_setup`."""
+    k, L, G = candidates.shape[1], n_lots, n_geometries
+    centre = float(np.mean(y))
+    per_lot = tuple(lik.Data(y[lot == l] - centre, failed[lot == l], candidates[lot == l]) for l in range(L))
+    expanded = np.zeros((y.size, k * L), dtype=bool)
+    for l in range(L):
+        expanded[lot == l, l * k:(l + 1) * k] = candidates[lot == l]
 
     def offsets(moduli):
         moduli = np.asarray(moduli, dtype=float)
         out = np.full(moduli.shape[:-1] + (L * G, k * L), -np.inf)
         for l in range(L):
-            block = 0.0 if base is None else base(moduli[..., l * k:(l + 1) * k])
+            block = 0.0 if size_offsets is None else size_offsets(moduli[..., l * k:(l + 1) * k])
             out[..., l * G:(l + 1) * G, l * k:(l + 1) * k] = block
         return out
 
     general = lik.Model("concurrent", k * L, size_offsets=offsets)
-    combined = lik.Data(y - centre, sp.failed, candidates, geometry=group)
-    return LotModel(k, L, per_lot, centre, general, combined, sized=bool(geometries) or force_general,
-                    extras=extras)
+    combined = lik.Data(y - centre, failed, expanded, geometry=lot if group is None else group)
+    return LotModel(k, L, per_lot, centre, general, combined, sized=sized, extras=extras or {})
+
+
+def simulated_tests(moduli, scales, n_per_lot: int, replicates: int, seed=0, unidentified: float = 0.0,
+                    progress: bool = False) -> dict:
+    """Likelihood-ratio p-values of campaigns drawn from known lots (a seeded size and power
+    study). moduli, scales: (L, k) truth. Returns ``p_same_population`` and
+    ``p_same_modulus`` (R, k) (NaN where a population had no failure in some lot) and
+    ``dropped`` (R,) True for those replicates."""
+    from . import progress as _progress
+    from .simulate import Design, simulate
+
+    moduli, scales = np.asarray(moduli, float), np.asarray(scales, float)
+    L, k = moduli.shape
+    rng = np.random.default_rng(seed)
+    design = Design.simple(n_per_lot, unidentified)
+    batches = [simulate(lik.Model("concurrent", k), moduli[l], scales[l], None, design, replicates, rng)
+               for l in range(L)]
+    p_pop = np.full((replicates, k), np.nan)
+    p_mod = np.full((replicates, k), np.nan)
+    lot = np.repeat(np.arange(L), n_per_lot)
+    with _progress.task("simulated lot comparisons", replicates, show=progress) as bar:
+        for r in range(replicates):
+            y = np.concatenate([b.y[r] for b in batches])
+            failed = np.concatenate([b.failed[r] for b in batches])
+            cand = np.concatenate([b.candidates[r] for b in batches])
+            if any(not (cand[(lot == l) & failed]).any(axis=0).all() for l in range(L)):
+                bar.step(r + 1)
+                continue
+            tests = likelihood_ratio_tests(model_from_arrays(y, failed, cand, lot, L))
+            p_pop[r] = [t["same_population"]["p_value"] for t in tests]
+            p_mod[r] = [t["same_modulus"]["p_value"] for t in tests]
+            bar.step(r + 1)
+    return {"p_same_population": p_pop, "p_same_modulus": p_mod, "dropped": np.isnan(p_pop[:, 0])}
 
 
 # ---- maximisation under each hypothesis --------------------------------------------------
@@ -513,7 +551,7 @@ def _posterior_changes(lots: Lots, confidence: float, priors, seed) -> tuple[lis
 
 def compare_lots(lots, populations=None, *, study=None, method: str = "mle", confidence: float | None = None,
                  probability: float | None = None, seed: int | None = 0, progress: bool = False,
-                 **read_options) -> "LotComparison":
+                 order: Sequence[str] | None = None, **read_options) -> "LotComparison":
     """Compare lots population by population: did a process change move each flaw population?
 
     lots: a :class:`Lots` (from :func:`read_lots`) or what :func:`read_lots` accepts.
@@ -522,13 +560,15 @@ def compare_lots(lots, populations=None, *, study=None, method: str = "mle", con
     probability that each population got stronger; the tests stay likelihood-ratio tests).
     probability: the failure probability at which stresses are also compared (default the
     study's [component] target_probability, else 1 %).
+    order: the lot names in order (the first is the baseline; default the study's lots,
+    else their order of appearance).
     """
     from . import progress as _progress
 
     if method not in ("mle", "bayes"):
         raise FlawmixError(f"unknown method '{method}'; use mle or bayes")
     if not isinstance(lots, Lots):
-        lots = read_lots_for_study(lots, study, populations, **read_options)
+        lots = read_lots_for_study(lots, study, populations, order=order, **read_options)
     confidence = confidence or (study.confidence if study and study.confidence else 0.90)
     load = study.component_load() if study and study.component else {}
     probability = probability or load.get("target_probability", DEFAULT_PROBABILITY)
@@ -570,22 +610,26 @@ def _lot_geometries(lots: Lots, study):
     return study.geometry_objects()
 
 
-def read_lots_for_study(sources, study=None, populations=None, **read_options) -> Lots:
+def _missing(sources) -> bool:
+    return sources is None or (isinstance(sources, (list, tuple)) and len(sources) == 0)
+
+
+def read_lots_for_study(sources, study=None, populations=None, order=None, **read_options) -> Lots:
     """:func:`read_lots` with the study file's populations, unit and [lots] (names, order,
     tables and geometries)."""
     populations = populations if populations is not None else (study.populations if study else None)
     unit = read_options.pop("unit", None) or (study.unit if study else None)
     spec = study.lots if study is not None and getattr(study, "lots", None) else None
-    order, geometries = None, None
+    geometries = None
     if spec is not None:
-        order = [name for name in spec]
+        order = order or [name for name in spec]
         geometries = {n: s["geometry"] for n, s in spec.items() if s.get("geometry")} or None
         tables = {n: s["specimens"] for n, s in spec.items() if s.get("specimens")}
-        if tables and not sources:
+        if tables and _missing(sources):
             sources = tables
-    if not sources and study is not None and study.specimens is not None:
+    if _missing(sources) and study is not None and study.specimens is not None:
         sources = study.specimens
-    if not sources:
+    if _missing(sources):
         raise FlawmixError("no specimen table given; name one table with a 'lot' column, one table per lot, or "
                            "give each lot's table in the study file ([lots.NAME] specimens = \"file.csv\")")
     if isinstance(sources, (list, tuple)) and len(sources) > 1 and order and len(order) == len(sources):
@@ -652,6 +696,12 @@ class LotComparison:
     reference_geometry: str | None = None
     log_likelihood: float = float("nan")
     data: Lots | None = field(default=None, repr=False, compare=False)
+
+    def population(self, name: str) -> LotPopulation:
+        for p in self.populations:
+            if p.name == name:
+                return p
+        raise FlawmixError(f"no population '{name}'; the comparison has {', '.join(p.name for p in self.populations)}")
 
     def moduli(self) -> np.ndarray:
         """(L, k) fitted moduli, lot by lot."""
