@@ -177,10 +177,15 @@ def read_study(path) -> Study:
     if not isinstance(geometries, dict):
         raise FlawmixError(f"{path}: 'geometries' must be tables [geometries.NAME]")
     component = raw.get("component")
-    return Study(**_table_keys(path, raw), populations=pops, unit=unit, confidence=confidence, specimens=specimens,
-                 title=raw.get("title"), seed=raw.get("seed"), length_unit=raw.get("length_unit"),
-                 geometries=geometries, component=component, priors=priors, path=path,
-                 geometry=raw.get("geometry"), lots=_lots(path, raw.get("lots")))
+    study = Study(**_table_keys(path, raw), populations=pops, unit=unit, confidence=confidence, specimens=specimens,
+                  title=raw.get("title"), seed=raw.get("seed"), length_unit=raw.get("length_unit"),
+                  geometries=geometries, component=component, priors=priors, path=path,
+                  geometry=raw.get("geometry"), lots=_lots(path, raw.get("lots")))
+    # a mistake in a geometry or the component must stop the run now, not after the fits
+    study.geometry_objects()
+    study.component_object()
+    study.component_load()
+    return study
 
 
 def _lots(path: Path, raw) -> dict[str, dict[str, Any]] | None:
@@ -196,7 +201,10 @@ def _lots(path: Path, raw) -> dict[str, dict[str, Any]] | None:
     out = {}
     for name, spec in raw.items():
         spec = {"specimens": spec} if isinstance(spec, str) else spec
-        bad = sorted(set(spec) - {"specimens", "geometry"}) if isinstance(spec, dict) else ["?"]
+        if not isinstance(spec, dict):
+            raise FlawmixError(f"{path}: [lots] {name} = {spec!r}: write the lot's table as text "
+                               f"({name} = \"table.csv\") or a [lots.{name}] table")
+        bad = sorted(set(spec) - {"specimens", "geometry"})
         if bad:
             raise FlawmixError(f"{path}: [lots.{name}]: unknown key '{bad[0]}'; use 'specimens' (its table) and "
                                "'geometry' (its geometry name)")
