@@ -696,12 +696,45 @@ class LotComparison:
     reference_geometry: str | None = None
     log_likelihood: float = float("nan")
     data: Lots | None = field(default=None, repr=False, compare=False)
+    lot_lines: tuple = field(default=(), repr=False, compare=False)
 
     def population(self, name: str) -> LotPopulation:
         for p in self.populations:
             if p.name == name:
                 return p
         raise FlawmixError(f"no population '{name}'; the comparison has {', '.join(p.name for p in self.populations)}")
+
+    def plotting_positions(self, rule: str = "hazen"):
+        """Each lot's certain failures of each population at Johnson's adjusted ranks within
+        its lot (other failures and survivors suspended). Columns: population, lot, specimen,
+        strength, probability."""
+        import pandas as pd
+
+        from .positions import adjusted_ranks, plotting_positions
+
+        if self.data is None:
+            raise FlawmixError("this comparison carries no specimens to plot")
+        sp, rows = self.data.specimens, []
+        certain = sp.failed & (sp.n_candidates == 1)
+        for l, lot in enumerate(self.lots):
+            mine = self.data.lot == l
+            strength, n = sp.strength[mine], int(mine.sum())
+            for j, name in enumerate(sp.population_names):
+                hits = (certain & sp.candidates[:, j])[mine]
+                if not hits.any():
+                    continue
+                idx, ranks = adjusted_ranks(strength, hits)
+                ids = np.asarray(sp.ids)[mine][idx] if sp.ids is not None else idx
+                rows += [{"population": name, "lot": lot, "specimen": i, "strength": x, "probability": q}
+                         for i, x, q in zip(ids, strength[idx], plotting_positions(ranks, n, rule))]
+        return pd.DataFrame(rows, columns=["population", "lot", "specimen", "strength", "probability"])
+
+    def lines(self):
+        """Each lot's fitted line of each population: modulus and the characteristic strength
+        of the lot's own geometry (its only one, else the reference geometry)."""
+        import pandas as pd
+
+        return pd.DataFrame(self.lot_lines, columns=["population", "lot", "modulus", "characteristic_strength"])
 
     def moduli(self) -> np.ndarray:
         """(L, k) fitted moduli, lot by lot."""
@@ -819,10 +852,31 @@ def _assemble(lots, model, free, tests, estimates, changes, posterior, confidenc
     notes = list(sp.warnings) + list(dict.fromkeys(problems))
     if not free.converged:
         notes.append("the free lot fit stopped before the score reached its tolerance")
+    verdict = "; ".join(sentences[:len(pops)]) + ". " + ". ".join(s[:1].upper() + s[1:] for s in sentences[len(pops):])
     return LotComparison(lots.names, sp.unit, method, confidence, probability, tuple(pops), overall, component,
-                         "; ".join(sentences[:len(pops)]) + ". " + ". ".join(sentences[len(pops):]) + ".",
-                         tuple(dict.fromkeys(notes)), model.extras.get("reference_geometry"),
-                         float(free.loglik - sp.n_failed * model.centre), lots)
+                         verdict + ".", tuple(dict.fromkeys(notes)), model.extras.get("reference_geometry"),
+                         float(free.loglik - sp.n_failed * model.centre), lots,
+                         _own_geometry_lines(lots, model, moduli, scales))
+
+
+def _own_geometry_lines(lots, model, moduli, scales) -> tuple:
+    """(population, lot, m, σθ) with σθ carried to the lot's own geometry when it has one."""
+    from .geometry import population_log_sizes
+
+    out = []
+    sp = lots.specimens
+    kinds = [p.kind for p in sp.populations]
+    for l, lot in enumerate(lots.names):
+        s = scales[l]
+        if model.sized:
+            own = set(sp.geometry[lots.lot == l])
+            if len(own) == 1:
+                geoms = dict(zip(model.extras["geometry_names"], model.extras["geometries"]))
+                ref, mine = geoms[model.extras["reference_geometry"]], geoms[own.pop()]
+                s = s * np.exp((population_log_sizes(ref, kinds, moduli[l]) -
+                                population_log_sizes(mine, kinds, moduli[l])) / moduli[l])
+        out += [(name, lot, float(moduli[l, j]), float(s[j])) for j, name in enumerate(sp.population_names)]
+    return tuple(out)
 
 
 def _posterior_estimates(estimates, posterior, confidence, centre):
