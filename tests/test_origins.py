@@ -198,3 +198,15 @@ def test_bayes_probabilities_are_posterior_means_that_sum_to_one():
 def test_a_threshold_outside_zero_one_is_refused(three_populations):
     with pytest.raises(FlawmixError, match="threshold"):
         three_populations.origin_probabilities(threshold=1.5)
+
+
+def test_fast_one_step_equals_the_general_path(three_populations):
+    # the concurrent model's analytic gradient against central differences of the likelihood terms
+    fit = origins._fitted(three_populations)
+    rows = origins._labelled_rows(three_populations.specimens)
+    fast = origins.one_step_without_label(fit, rows)
+    general = origins.one_step_without_label(fit, rows, general=True)
+    np.testing.assert_allclose(fast, general, rtol=0, atol=1e-7)
+    everything = np.ones((rows.size, fit.spec.k), bool)
+    by_terms = origins.candidate_probabilities(fit.spec, origins._own_rows(fit.data, rows, everything), fast)[:, 0]
+    np.testing.assert_allclose(origins._row_probabilities(fit, rows, fast), by_terms, atol=1e-12)
