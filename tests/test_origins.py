@@ -268,3 +268,17 @@ def test_swap_detection_rates_over_many_campaigns():
         false, correct = false + check[~mask].sum(), correct + (~mask).sum()
     assert hits / total > 0.75          # about 0.83 expected; 400 swapped labels, SE ≈ 0.02
     assert false / correct < 0.015      # about 0.004 expected; 5600 correct labels, SE ≈ 0.001
+
+
+@pytest.mark.parametrize("model", ["exclusive", "partial"])
+def test_mixture_refit_without_a_label_equals_fitting_the_edited_table(model):
+    # the edited table's probabilities follow the mixture formulas (tested against scipy above)
+    frame = _two_population_frame(11, 50)
+    r = fm.fit(frame, model=model, intervals="none")
+    rows, probs, _ = origins.label_probabilities(r, "refit")
+    for n in (0, len(rows) - 1):
+        edited = frame.copy()
+        edited.loc[rows[n], "origin"] = "?"
+        table = fm.fit(edited, model=model, intervals="none").origin_probabilities()
+        row = table[table["specimen"] == str(rows[n] + 1)]
+        np.testing.assert_allclose(probs[n], row[[p.name for p in r.populations]].to_numpy(float)[0], atol=1e-5)
