@@ -23,6 +23,7 @@ from .pivots import pivot_quantiles
 from .positions import adjusted_ranks, plotting_positions, position_rule, strength_order
 from .result import FitResult, HypothesisTest, PopulationEstimate
 from .specimens import Specimens, check_estimable
+from .support import small_population_notes
 
 NEWTON_STARTS = 3                # Newton runs from this many EM starts besides by-count
 PROFILE_MAX_SPECIMENS = 20_000   # above this, profile and Wald intervals agree to print precision
@@ -283,6 +284,7 @@ def fit_mle(
         raise FlawmixError(f"unknown model '{model}'; use one of {', '.join(lik.MODELS)}")
     position_rule(positions)
     notes = check_estimable(specimens)
+    notes += small_population_notes(specimens.population_names, specimens.certain_failures())
     for w in notes:
         _warnings.warn(w, FlawmixWarning, stacklevel=3)
     data, centre = _centred_data(specimens)

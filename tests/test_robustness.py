@@ -89,3 +89,44 @@ def test_three_hundred_random_campaigns_reach_the_multistart_maximum():
     shortfall = _shortfalls(range(2000, 2300))
     assert shortfall.size > 250
     assert shortfall.max() < 1e-3, f"largest shortfall {shortfall.max():.4g} of {shortfall.size} sets"
+
+
+def _two_populations(rare_strengths, seed=3):
+    """40 labelled failures of 'big' (m = 10, σθ = 300) and a few of 'rare'."""
+    rng = np.random.default_rng(seed)
+    strength = np.concatenate([300 * rng.weibull(10.0, 40), rare_strengths])
+    n = strength.size
+    candidates = np.zeros((n, 2), bool)
+    candidates[:40, 0] = True
+    candidates[40:, 1] = True
+    return Specimens(strength, np.ones(n, bool), candidates, (Population("big"), Population("rare")),
+                     ids=np.array([f"S{i}" for i in range(n)]))
+
+
+def test_population_with_few_failures_is_flagged_in_table_json_and_warnings():
+    specimens = _two_populations([250.0, 420.0])
+    with pytest.warns(fm.FlawmixWarning, match="'rare' has 2 certain failures \\(fewer than 5\\)"):
+        result = fm.fit(specimens)
+    exported = result.to_dict()
+    support = {p["name"]: p["support"] for p in exported["populations"]}
+    assert support["rare"].startswith("unsupported: only 2 certain failures")
+    assert support["big"] == "supported: 40 certain failures"
+    assert any("'rare' has 2 certain failures" in w for w in exported["warnings"])
+    table = [line for line in str(result).splitlines() if line.startswith("rare")]
+    assert table and table[0].endswith("unsupported")
+    assert result.summary()["support"].to_dict() == {"big": "", "rare": "unsupported"}
+
+
+def test_posterior_dominated_by_the_prior_is_said():
+    """One failure of 'rare': its modulus has nothing but the prior to go on. The width ratio
+    is recomputed here from the draws and the prior's stated 95 % range (priors.py defaults)."""
+    specimens = _two_populations([330.0])
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", fm.FlawmixWarning)
+        result = fm.fit(specimens, method="bayes", target_ess=300)
+    prior_sd = np.log(64.0 / 1.9) / (2 * 1.96)      # default modulus prior: 95 % range 1.9 .. 64
+    lo, hi = np.quantile(np.log(result.draws.moduli), [0.05, 0.95], axis=0)
+    ratio = (hi - lo) / (2 * 1.6449 * prior_sd)
+    dominated = [w for w in result.warnings if "the prior, not the data" in w]
+    assert ratio[1] > 0.8 and ratio[0] < 0.8
+    assert len(dominated) == 1 and "'rare'" in dominated[0] and "modulus" in dominated[0]
