@@ -26,6 +26,7 @@ from .specimens import Specimens, check_estimable
 from .support import small_population_notes
 
 NEWTON_STARTS = 3                # Newton runs from this many EM starts besides by-count
+NO_FINITE_ESTIMATE = "no finite estimate exists"   # the words a study can look for
 PROFILE_MAX_SPECIMENS = 20_000   # above this, profile and Wald intervals agree to print precision
 
 
@@ -149,8 +150,8 @@ def _regression(specimens: Specimens, j: int, rule: str, single=None, order=None
     if single is None:
         single = specimens.failed & (specimens.n_candidates == 1)
     mine = single & specimens.candidates[:, j]
-    if mine.sum() < 2:
-        return None, None
+    if mine.sum() < 2 or np.ptp(specimens.strength[mine]) <= 1e-12 * np.max(specimens.strength[mine]):
+        return None, None   # a line needs two distinct strengths
     n = specimens.n_specimens
     if mine.all():
         order = np.argsort(specimens.strength) if order is None else order
@@ -317,12 +318,12 @@ def fit_mle(
     theta = opt.theta.copy()
     u, v = theta[:k], theta[k:2 * k]
     fractions = spec.fractions(theta)
-    at_bound = u >= lik.LOG_MODULUS_MAX - 1e-9
+    at_bound = (u >= lik.LOG_MODULUS_MAX - 1e-9) | (u <= lik.LOG_MODULUS_MIN + 1e-9)
     loglik = opt.loglik - specimens.n_failed * centre  # undo the centring's Jacobian shift
     resp = _responsibilities(spec, data, theta)
     expected = resp.sum(axis=0)
 
-    complete_single = k == 1 and specimens.n_survived == 0
+    complete_single = k == 1 and specimens.n_survived == 0 and n >= 2   # pivots need two specimens
     method = _interval_method(intervals, specimens, complete_single)
     m_hat = np.exp(u)
     unbiased = [None] * k
@@ -520,9 +521,18 @@ def _degeneracy_notes(spec: lik.Model, specimens: Specimens, theta: np.ndarray, 
                          "A mixture likelihood is unbounded when one population collapses onto a few equal-looking "
                          "strengths; this estimate is not meaningful (a known degeneracy of mixture likelihoods). "
                          "Use method='bayes' (proper priors) or the concurrent model")
+        elif theta[j] <= lik.LOG_MODULUS_MIN + 1e-9:
+            notes.append(f"population '{names[j]}': modulus reached the lower search bound "
+                         f"{np.exp(lik.LOG_MODULUS_MIN):g}: its strengths spread over too many decades for a Weibull "
+                         f"population, so {NO_FINITE_ESTIMATE} inside the bounds; check the strengths and their unit")
         else:
+            mine = specimens.failed & specimens.candidates[:, j]
+            why = ("it has a single failure" if mine.sum() < 2 else
+                   "its failure strengths are all equal (no scatter)" if np.ptp(specimens.strength[mine]) == 0
+                   else "the data do not bound it")
             notes.append(f"population '{names[j]}': modulus reached the search bound "
-                         f"{np.exp(lik.LOG_MODULUS_MAX):.0f}; the data do not bound it")
+                         f"{np.exp(lik.LOG_MODULUS_MAX):.0f}: {why}, so {NO_FINITE_ESTIMATE} (the value shown "
+                         "is the bound)")
     if spec.name != "concurrent":
         fr = spec.fractions(theta)
         for j in range(spec.k):

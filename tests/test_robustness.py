@@ -130,3 +130,54 @@ def test_posterior_dominated_by_the_prior_is_said():
     dominated = [w for w in result.warnings if "the prior, not the data" in w]
     assert ratio[1] > 0.8 and ratio[0] < 0.8
     assert len(dominated) == 1 and "'rare'" in dominated[0] and "modulus" in dominated[0]
+
+
+def _one_population(strength, failed=None):
+    strength = np.asarray(strength, dtype=float)
+    failed = np.ones(strength.size, bool) if failed is None else np.asarray(failed)
+    return Specimens(strength, failed, failed[:, None].copy(), (Population("flaw"),),
+                     ids=np.array([f"S{i}" for i in range(strength.size)]))
+
+
+def _quiet_fit(specimens, **options):
+    """Fit with FlawmixWarnings recorded and every other warning (numpy's) an error."""
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("error")
+        warnings.simplefilter("always", fm.FlawmixWarning)
+        result = fm.fit(specimens, **options)
+    return result, [str(w.message) for w in caught]
+
+
+@pytest.mark.parametrize("seed", [11, 12, 13])
+def test_results_do_not_depend_on_the_stress_unit_over_twelve_decades(seed):
+    """A change of unit multiplies every strength by c: m is unchanged, σθ scales by c and the
+    log-likelihood (a density in σ) falls by n_failed · ln c (change of variables)."""
+    base = random_campaign(seed).specimens
+    ref, _ = _quiet_fit(base, intervals="none")
+    for decades in (-150, -6, -3, 3, 6, 150):
+        factor = 10.0 ** decades
+        scaled, _ = _quiet_fit(rescaled(base, factor), intervals="none")
+        np.testing.assert_allclose(scaled.moduli, ref.moduli, rtol=1e-9)
+        np.testing.assert_allclose(scaled.characteristic_strengths / factor, ref.characteristic_strengths, rtol=1e-9)
+        assert scaled.log_likelihood == pytest.approx(ref.log_likelihood - base.n_failed * np.log(factor),
+                                                      rel=1e-9, abs=1e-7)
+
+
+def test_strengths_spread_over_six_hundred_decades_say_no_finite_estimate():
+    result, said = _quiet_fit(_one_population([1e-300, 1e300, 1.0, 5.0, 2.0, 3.0]))
+    assert result.populations[0].at_bound
+    assert any("lower search bound" in w and "no finite estimate exists" in w for w in result.warnings)
+
+
+def test_identical_strengths_give_no_regression_line_and_no_library_warning():
+    result, said = _quiet_fit(_one_population([300.0] * 10))
+    pop = result.populations[0]
+    assert pop.regression_modulus is None and pop.at_bound
+    assert any("all equal (no scatter), so no finite estimate exists" in w for w in result.warnings)
+
+
+def test_one_specimen_is_fitted_and_said_to_have_no_finite_estimate():
+    result, said = _quiet_fit(_one_population([300.0]))
+    assert result.populations[0].at_bound
+    assert result.populations[0].characteristic_strength == pytest.approx(300.0)   # the one failure
+    assert any("single failure, so no finite estimate exists" in w for w in result.warnings)
