@@ -77,3 +77,27 @@ def risk_shares_at(moduli, scales, names, stress: float) -> dict[str, float]:
     log_risk = np.asarray(moduli, float) * (np.log(stress) - np.log(np.asarray(scales, float)))
     w = np.exp(log_risk - np.max(log_risk))
     return dict(zip(names, (w / w.sum()).tolist()))
+
+
+def notes_at(result, body_scales, stresses) -> list[str]:
+    """For a concurrent fit: what to say next to a number quoted at each stress of a body
+    whose characteristic strengths are ``body_scales`` (the specimens' or a component's):
+    the weak population driving it, and extrapolation when the test specimens' failure
+    probability at that stress lies below the lowest tested one."""
+    weak = weak_populations(result)
+    names = [p.name for p in result.populations]
+    m = np.asarray(result.moduli, float)
+    spec = np.asarray(result.characteristic_strengths, float)
+    lowest = lowest_tested_probability(result)
+    out = []
+    for s in np.atleast_1d(np.asarray(stresses, float)):
+        if not (np.isfinite(s) and s > 0):
+            out.append("")
+            continue
+        specimen_probability = -np.expm1(-np.sum(np.exp(m * (np.log(s) - np.log(spec)))))
+        out.append(number_note(weak, risk_shares_at(m, body_scales, names, s), specimen_probability, lowest))
+    return out
+
+
+def join_notes(*notes: str) -> str:
+    return "; ".join(dict.fromkeys(n for part in notes for n in part.split("; ") if n))

@@ -3,6 +3,7 @@
 The reference for the global maximum is outside flawmix's optimiser: scipy.optimize's
 L-BFGS-B from many random starts inside the same modulus bounds, on the same likelihood.
 """
+import json
 import warnings
 
 import numpy as np
@@ -181,3 +182,41 @@ def test_one_specimen_is_fitted_and_said_to_have_no_finite_estimate():
     assert result.populations[0].at_bound
     assert result.populations[0].characteristic_strength == pytest.approx(300.0)   # the one failure
     assert any("single failure, so no finite estimate exists" in w for w in result.warnings)
+
+
+def _rare_weak_low_tail():
+    """'rare': 3 labelled failures far below 'big' (40 failures, m = 10, σθ = 300), so 'rare'
+    carries nearly all the risk at low failure probabilities."""
+    rng = np.random.default_rng(5)
+    strength = np.concatenate([300 * rng.weibull(10.0, 40), [150.0, 200.0, 260.0]])
+    n = strength.size
+    candidates = np.zeros((n, 2), bool)
+    candidates[:40, 0] = True
+    candidates[40:, 1] = True
+    pops = (Population("big", kind="volume"), Population("rare", kind="volume"))
+    return Specimens(strength, np.ones(n, bool), candidates, pops, ids=np.array([f"S{i}" for i in range(n)]))
+
+
+def test_prediction_and_what_if_driven_by_a_weak_population_say_so_next_to_the_number():
+    from flawmix.geometry import Geometry
+    from flawmix.predict import predict, what_if
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", fm.FlawmixWarning)
+        result = fm.fit(_rare_weak_low_tail(), intervals="none")
+    coupon = Geometry.from_spec("B", {"type": "sizes", "volume": 10.0, "area": 60.0})
+    part = Geometry.from_spec("P", {"type": "sizes", "volume": 1000.0, "area": 3000.0})
+    m, s = result.moduli, result.characteristic_strengths
+    prediction = predict(result, coupon, part, probabilities=[1e-4, 0.5], component_name="part")
+    notes = prediction.strengths_at["part note"]
+    # independent check of the rule: risk share of 'rare' at the quoted stress, in the part
+    # (volume scaling: σθ_part = σθ (V_B / V_P)^(1/m)), and the specimen probability there
+    stress = prediction.strengths_at.loc[1e-4, "part"]
+    risk = (stress / (s * (10.0 / 1000.0) ** (1 / m))) ** m
+    assert risk[1] / risk.sum() > 0.5
+    assert "driven by 'rare' (3 certain failures, fewer than 5" in notes.loc[1e-4]
+    assert "extrapolated below the lowest tested failure probability" in notes.loc[1e-4]
+    assert "unsupported" in str(prediction)
+    table = what_if(result, coupon, part, {"rare": 0.0}, probabilities=[1e-4], component_name="part")
+    assert "driven by 'rare'" in table.loc[("part", 1e-4), "note"]
+    assert "note" in json.dumps(prediction.to_dict())
