@@ -24,6 +24,7 @@ from .positions import adjusted_ranks, plotting_positions, position_rule, streng
 from .result import FitResult, HypothesisTest, PopulationEstimate
 from .specimens import Specimens, check_estimable
 from .support import small_population_notes
+from .bootstrap_health import MIN_USED, ratio_corrected, replicate_health
 
 NEWTON_STARTS = 3                # Newton runs from this many EM starts besides by-count
 NO_FINITE_ESTIMATE = "no finite estimate exists"   # the words a study can look for
@@ -579,8 +580,8 @@ def attach_bootstrap(result: FitResult, replicates: int = 1000, seed=0, executor
     observed design (survivors keep their stresses, origins go unidentified as often), refitted.
 
     Adds ``draws`` (kind "bootstrap") for intervals on every derived quantity, bias-corrected
-    moduli and strengths (2·estimate − bootstrap mean), and the share of replicates in which
-    some population had no failure (dropped)."""
+    moduli and strengths (estimate² / geometric mean of the replicates, never negative), and
+    per population the share of replicates it could not be used in (bootstrap_health.py)."""
     from dataclasses import replace
 
     from .montecarlo import simulate_and_fit
@@ -599,32 +600,60 @@ def attach_bootstrap(result: FitResult, replicates: int = 1000, seed=0, executor
         raise FlawmixError("bootstrap the free-modulus concurrent fit instead of the common-modulus one")
     fits = simulate_and_fit(lik.Model("concurrent", k), result.moduli, result.characteristic_strengths, None, design,
                             replicates, seed, executor, progress=progress)
-    ok = fits.ok
-    m, s = fits.moduli[ok], fits.scales[ok]
     # Reflect each replicate through the Weibull pivots m̂/m and m̂·ln(σ̂θ/σθ) (exact for
     # complete data, DOMAIN.md section 3): the bootstrap law of (m*/m̂, m* ln(σθ*/σ̂θ)) stands
     # in for that of (m̂/m, m̂ ln(σ̂θ/σθ)). Percentiles of the reflected draws are then the
     # pivotal intervals, and every derived quantity inherits the same bias correction.
     m_hat, s_hat = result.moduli, result.characteristic_strengths
-    ratio = m / m_hat
-    pivot = m * np.log(s / s_hat)
-    m_ref = m_hat / ratio
-    s_ref = s_hat * np.exp(-pivot / m_hat)
+    names = [p.name for p in result.populations]
+    with np.errstate(all="ignore"):
+        health = replicate_health(names, fits, m_hat**2 / fits.moduli)
+    used = health.used
+    notes = list(result.warnings) + list(health.notes)
+    for line in health.notes:
+        _warnings.warn(line, FlawmixWarning, stacklevel=3)
+    extras = dict(result.extras)
+    summary = {"replicates": int(replicates), "used": int(used.sum()), "seed": seed,
+               "dropped_no_failures": float(np.mean(np.any(fits.failures == 0, axis=1))),
+               "unusable_share": health.unusable_share, "profile_fallback": list(health.fallback)}
+    if used.sum() < MIN_USED:   # nothing to build draws from: keep the fit's profile intervals
+        extras["bootstrap"] = summary
+        return replace(_with_profile(result, names), warnings=tuple(dict.fromkeys(notes)), extras=extras)
+    m, s = fits.moduli[used], fits.scales[used]
+    m_ref = m_hat**2 / m
+    s_ref = s_hat * np.exp(-(m * np.log(s / s_hat)) / m_hat)
     draws = Draws("bootstrap", m_ref, s_ref, np.ones_like(m))
     lo_q, hi_q = (1 - result.confidence) / 2, (1 + result.confidence) / 2
+    profile = _with_profile(result, health.fallback) if health.fallback else result
     pops = []
     for j, p in enumerate(result.populations):
+        if p.name in health.fallback:
+            pops.append(profile.populations[j])
+            continue
         pops.append(replace(
             p, modulus_interval=tuple(float(x) for x in np.quantile(m_ref[:, j], [lo_q, hi_q])),
             strength_interval=tuple(float(x) for x in np.quantile(s_ref[:, j], [lo_q, hi_q])),
             interval_method="parametric bootstrap (Weibull pivots)"))
-    extras = dict(result.extras)
+    m_bc, s_bc = ratio_corrected(m_hat, m), ratio_corrected(s_hat, s)
     extras["bootstrap"] = {
-        "replicates": int(replicates), "used": int(ok.sum()), "seed": seed,
-        "dropped_no_failures": float(np.mean(np.any(fits.failures == 0, axis=1))),
-        "modulus_bias_corrected": {p.name: float(2 * p.modulus - m[:, j].mean()) for j, p in enumerate(result.populations)},
-        "strength_bias_corrected": {p.name: float(2 * p.characteristic_strength - s[:, j].mean())
-                                    for j, p in enumerate(result.populations)},
-        "modulus_mean_ratio": {p.name: float(m[:, j].mean() / p.modulus) for j, p in enumerate(result.populations)},
+        **summary,
+        "modulus_bias_corrected": dict(zip(names, m_bc.tolist())),
+        "strength_bias_corrected": dict(zip(names, s_bc.tolist())),
+        "modulus_mean_ratio": {n: float(m[:, j].mean() / m_hat[j]) for j, n in enumerate(names)},
     }
-    return replace(result, populations=tuple(pops), draws=draws, extras=extras)
+    return replace(result, populations=tuple(pops), draws=draws, extras=extras, warnings=tuple(dict.fromkeys(notes)))
+
+
+def _with_profile(result: FitResult, names) -> FitResult:
+    """The fit with profile-likelihood intervals for populations ``names`` (refitted only when
+    the fit itself carries none)."""
+    from dataclasses import replace
+
+    if all(p.interval_method == "profile" for p in result.populations if p.name in names):
+        return result
+    with _warnings.catch_warnings():
+        _warnings.simplefilter("ignore", FlawmixWarning)   # already said once by the fit
+        refit = fit_mle(result.specimens, result.confidence, intervals="profile", positions=result.plotting_rule,
+                        tests=False)
+    return replace(result, populations=tuple(q if p.name in names else p
+                                             for p, q in zip(result.populations, refit.populations)))

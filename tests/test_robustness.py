@@ -220,3 +220,37 @@ def test_prediction_and_what_if_driven_by_a_weak_population_say_so_next_to_the_n
     table = what_if(result, coupon, part, {"rare": 0.0}, probabilities=[1e-4], component_name="part")
     assert "driven by 'rare'" in table.loc[("part", 1e-4), "note"]
     assert "note" in json.dumps(prediction.to_dict())
+
+
+def test_bootstrap_names_a_collapsing_population_and_falls_back_to_its_profile_interval():
+    specimens = _two_populations([250.0, 420.0])
+    with pytest.warns(fm.FlawmixWarning, match="population 'rare' could not be used in"):
+        result = fm.fit(specimens, intervals="bootstrap", bootstrap=200, seed=0)
+    boot = result.extras["bootstrap"]
+    # 'rare' owns 2 of 42 failures: the binomial chance that a replicate draws none of its
+    # failures is about (1 - 2/42)^42 ≈ 0.13, so well over 5 % of replicates lose it
+    assert boot["unusable_share"]["rare"] > 0.05 and boot["unusable_share"]["big"] == 0.0
+    assert boot["profile_fallback"] == ["rare"]
+    rare = result.population("rare")
+    assert rare.interval_method == "profile"
+    profile = fm.fit(specimens, intervals="profile").population("rare")
+    assert rare.modulus_interval == pytest.approx(profile.modulus_interval, rel=1e-9)
+    assert result.population("big").interval_method.startswith("parametric bootstrap")
+    assert all(v > 0 for v in boot["modulus_bias_corrected"].values())
+    assert all(v > 0 for v in boot["strength_bias_corrected"].values())
+    assert result.draws.moduli.shape[0] == boot["used"]
+
+
+def test_bootstrap_draws_of_a_weak_population_can_be_scaled_to_a_component():
+    """The predict path: every reflected modulus stays inside the tabulated 0.05..1000."""
+    from flawmix.geometry import Geometry
+    from flawmix.predict import predict
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", fm.FlawmixWarning)
+        result = fm.fit(_rare_weak_low_tail(), bootstrap=200, seed=1)
+    assert np.all((result.draws.moduli > 0.05) & (result.draws.moduli < 1000.0))
+    coupon = Geometry.from_spec("B", {"type": "sizes", "volume": 10.0, "area": 60.0})
+    part = Geometry.from_spec("P", {"type": "sizes", "volume": 1000.0, "area": 3000.0})
+    table = predict(result, coupon, part, probabilities=[1e-4], component_name="part").strengths_at
+    assert 0 < table.loc[1e-4, "part low"] < table.loc[1e-4, "part"] < table.loc[1e-4, "part high"]
