@@ -474,8 +474,11 @@ def change_interval(model: LotModel, free, population: int, lot_from: int, lot_t
 
 # ---- the comparison ---------------------------------------------------------------------
 
-def _check_lots(lots: Lots) -> None:
-    """Every population needs a failure in every lot for a finite estimate of its copy."""
+def _check_lots(lots: Lots) -> list[str]:
+    """Every population needs a failure in every lot for a finite estimate of its copy;
+    returns the doubts about weakly identified copies, each naming its lot."""
+    from .specimens import check_estimable
+
     sp = lots.specimens
     for l, lot in enumerate(lots.names):
         possible = sp.candidates[(lots.lot == l) & sp.failed].sum(axis=0)
@@ -484,6 +487,13 @@ def _check_lots(lots: Lots) -> None:
                 raise FlawmixError(f"{sp.source or 'specimens'}: population '{name}' has no failure in lot '{lot}', "
                                    "so its strength there has no finite estimate (the change may have removed it); "
                                    "compare the other populations by leaving it out of the grouping, or merge it")
+    notes = []
+    for l, lot in enumerate(lots.names):
+        from dataclasses import replace
+
+        part = replace(lots.subset(l), warnings=())
+        notes += [f"lot '{lot}': {w}" for w in check_estimable(part)]
+    return notes
 
 
 def _per_lot_estimates(model: LotModel, free, lots: Lots, confidence: float, problems: list) -> list[list[dict]]:
@@ -517,7 +527,9 @@ def _overall_strength(moduli: np.ndarray, scales: np.ndarray, probability: float
     from scipy.optimize import brentq
 
     target = -math.log1p(-probability)
-    f = lambda x: math.log(np.sum(np.exp(moduli * (x - np.log(scales))))) - math.log(target)
+    from scipy.special import logsumexp
+
+    f = lambda x: float(logsumexp(moduli * (x - np.log(scales)))) - math.log(target)
     lo, hi = float(np.min(np.log(scales))) - 50.0, float(np.max(np.log(scales))) + 5.0
     return math.exp(brentq(f, lo, hi, xtol=1e-12))
 
@@ -574,12 +586,12 @@ def compare_lots(lots, populations=None, *, study=None, method: str = "mle", con
     probability = probability or load.get("target_probability", DEFAULT_PROBABILITY)
     if not 0 < probability < 1:
         raise FlawmixError(f"probability {probability} must lie strictly between 0 and 1 (for example 0.01)")
-    _check_lots(lots)
+    doubts = _check_lots(lots)
     geometries = _lot_geometries(lots, study)
     if method == "bayes" and geometries:
         raise FlawmixError("--method bayes for lots tested on different geometries is not available; use mle")
     model = lot_model(lots, geometries)
-    problems: list[str] = []
+    problems: list[str] = list(doubts)
     with _progress.task("comparing lots", 3 + model.k, show=progress) as bar:
         free = maximise(model)
         bar.step(1, "free fit")

@@ -281,8 +281,14 @@ def test_cli_table_without_lots_is_one_line_error(tmp_path, capsys):
     assert err.startswith("error:") and "'lot' column" in err and "\n" not in err
 
 
-def test_population_without_failures_in_a_lot_is_named(two_lots):
+def test_population_only_possible_in_a_lot_is_warned_about(two_lots):
     frame = two_lots[~((two_lots.lot == "after") & (two_lots.origin == "pore"))]
+    c = L.compare_lots(frame, POPS)
+    assert any(w.startswith("lot 'after': population 'pores' has no failure attributed") for w in c.warnings)
+
+
+def test_population_without_failures_in_a_lot_is_named(two_lots):
+    frame = two_lots[~((two_lots.lot == "after") & two_lots.origin.isin(["pore", "?"]))]
     with pytest.raises(fm.FlawmixError, match="'pores' has no failure in lot 'after'"):
         L.compare_lots(frame, POPS)
 
