@@ -969,3 +969,19 @@ def format_comparison(c: LotComparison) -> str:
         lines.append("")
     lines.append("Verdict: " + c.verdict)
     return "\n".join(lines)
+
+
+def comparison_for_report(specimens, study=None, confidence: float = 0.90, seed=0):
+    """The lot comparison of a specimen table that has a ``lot`` column with two or more lots
+    (None otherwise; the error's text when the lots cannot be compared)."""
+    text = _lot_column(specimens)
+    if text is None or len(set(text)) < 2:
+        return None
+    order = list(study.lots) if study is not None and study.lots else None
+    try:
+        lots = read_lots(specimens, lots=order, geometries={n: s["geometry"] for n, s in study.lots.items()
+                                                            if s.get("geometry")} or None
+                         if study is not None and study.lots else None)
+        return compare_lots(lots, study=study, confidence=confidence, seed=seed)
+    except FlawmixError as exc:
+        return f"The lots could not be compared: {exc}"

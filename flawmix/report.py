@@ -229,6 +229,9 @@ def analyse(specimens, *, study=None, method="mle", compare_models=True, bayes=T
             with progress.task("comparing models"):
                 comparison = compare(specimens, bayes=bayes, bootstrap=boundary_replicates, seed=seed, confidence=conf)
     a = Analysis(specimens, study, mle, main, conf, seed, comparison)
+    from .lots import comparison_for_report
+
+    a.extra["lots"] = comparison_for_report(specimens, study, conf, seed)   # None without a lot column
     drawn = with_draws(main, seed) if main.model.startswith("concurrent") else main   # intervals on predictions
     a.bottom, _ = bottom_line_of(drawn, study, specimens, comparison, seed=seed)
     comp = study.component_object() if study else None
@@ -330,6 +333,8 @@ def _results(a: Analysis) -> dict:
         results["prediction"] = a.prediction.to_dict()
     if a.bottom is not None:
         results["bottom_line"] = a.bottom.to_dict()
+    if a.extra.get("lots") is not None and not isinstance(a.extra["lots"], str):
+        results["lots"] = a.extra["lots"].to_dict()
     results["software"] = _versions()
     results["seed"] = a.seed
     return results
@@ -429,6 +434,29 @@ def section_comparison(a: Analysis, figs, tables) -> list[str]:
     return out
 
 
+def section_lots(a: Analysis, figs, tables) -> list[str]:
+    from . import plots
+
+    c = a.extra.get("lots")
+    if c is None:
+        return []
+    out = ["<h2>Lots compared population by population</h2>"]
+    if isinstance(c, str):   # the lots could not be compared: say why
+        return out + [f'<p class="caution">{_esc(c)}</p>']
+    out.append(f"<p>The table's lots ({_esc(', '.join(c.lots))}; baseline '{_esc(c.lots[0])}') fitted jointly, each "
+               "population with its own modulus and characteristic strength in every lot; likelihood-ratio tests of "
+               "'the same in every lot' and of 'the same modulus' for each population, the other populations free "
+               "per lot.</p>")
+    c.summary().to_csv(tables / "lots.csv")
+    out.append(_table(c.summary(), kinds={"failures": "count", "p same population": "p_value",
+                                          "p same modulus": "p_value"}))
+    out.append(f'<p class="verdict">{_esc(c.verdict)}</p>')
+    out.append(figs.add("lots_probability_plots", plots.lot_probability_plot(c),
+                        "Each population's failures lot by lot, at adjusted ranks within the lot, with each lot's own "
+                        "fitted line; every panel on the same axes."))
+    return out
+
+
 def section_limits(a: Analysis, figs, tables) -> list[str]:
     from . import plots
     from .bottomline import dominance_changes
@@ -456,8 +484,9 @@ def section_limits(a: Analysis, figs, tables) -> list[str]:
                                                           s.min() / 100, s.max() * 2)))
     for where, cross in sides:
         for c in cross:
+            outside = "" if s.min() <= c["stress"] <= s.max() else " (outside the tested strengths: an extrapolation)"
             out.append(f"<p>{_esc(where)}: <b>{_esc(c['below'])}</b> dominates below "
-                       f"{fmt.stress(c['stress'])} {_esc(main.unit)}, <b>{_esc(c['above'])}</b> above.</p>")
+                       f"{fmt.stress(c['stress'])} {_esc(main.unit)}, <b>{_esc(c['above'])}</b> above{outside}.</p>")
     if a.what_if is not None:
         table = a.what_if.reset_index()
         table.to_csv(tables / "what_if.csv", index=False)
@@ -466,9 +495,33 @@ def section_limits(a: Analysis, figs, tables) -> list[str]:
                                       "gain low (%)": f"gain {level} low (%)", "gain high (%)": f"gain {level} high (%)"})
         out.append("<p>Stress at a given failure probability after each change, alone and combined (a population "
                    "removed, e.g. pores by hot isostatic pressing; a risk halved, e.g. grinding damage by a finer "
-                   "finish):</p>")
-        out.append(_table(table, index=False, kinds={"failure probability": "probability"}))
+                   f"finish). Each cell: stress after the change, gain over today in %, its {level} "
+                   f"(every column: tables/what_if.csv):</p>")
+        wide = _what_if_wide(a.what_if, main.unit)
+        out.append(_table(wide, index=False, kinds={c: "text" for c in wide.columns}))
     return out
+
+
+def _what_if_wide(what_if, unit: str):
+    """The what-if table with one row per change and one column per body and failure
+    probability, each cell "stress (gain % [low, high])"; the row "today" gives the stresses
+    before any change."""
+    import pandas as pd
+
+    t = what_if.reset_index()
+    columns = list(dict.fromkeys(zip(t["body"], t["failure probability"])))
+    def head(body, prob):
+        return f"{body}, P = {fmt.probability(prob)} ({unit})"
+    rows = [{"change": "today", **{head(b, q): fmt.stress(t[(t["body"] == b) & (t["failure probability"] == q)]
+                                                        ["before"].iloc[0]) for b, q in columns}}]
+    for change, group in t.groupby("change", sort=False):
+        row = {"change": change}
+        for b, q in columns:
+            r = group[(group["body"] == b) & (group["failure probability"] == q)].iloc[0]
+            row[head(b, q)] = (f"{fmt.stress(r['after'])} ({fmt.percent(r['gain (%)'])} % "
+                               f"[{fmt.percent(r['gain low (%)'])}, {fmt.percent(r['gain high (%)'])}])")
+        rows.append(row)
+    return pd.DataFrame(rows)
 
 
 def section_component(a: Analysis, figs, tables) -> list[str]:
@@ -533,7 +586,7 @@ def section_cautions(a: Analysis, figs, tables) -> list[str]:
 
 
 SECTIONS = [section_bottom_line, section_data, section_probability_plot, section_estimates, section_comparison,
-            section_limits, section_component, section_methods, section_software, section_warnings,
+            section_lots, section_limits, section_component, section_methods, section_software, section_warnings,
             section_cautions]
 
 

@@ -28,7 +28,7 @@ from .units import stress_unit
 LOAD_KEYS = ("stress", "target_probability")   # [component] keys that describe the analysed load
 KNOWN_KEYS = {"unit", "confidence", "specimens", "populations", "geometries", "component",
               "seed", "title", "length_unit", "geometry", "sheet", "unidentified_words", "origin_separators",
-              "uncertain_origins", "lots"}
+              "uncertain_origins", "toughness", "lots"}
 
 
 @dataclass(frozen=True)
@@ -45,6 +45,8 @@ class Study:
     geometries: dict[str, dict[str, Any]] = field(default_factory=dict)
     component: dict[str, Any] | None = None
     priors: dict[str, dict[str, Any]] = field(default_factory=dict)
+    toughness: Any = None                # K_Ic in MPa·√m, or a table (flawmix.fracture reads it)
+    cracks: dict[str, Any] = field(default_factory=dict)   # population -> crack model settings
     path: Path | None = None
     geometry: str | None = None          # geometry of every specimen when the table has no column
     sheet: str | int | None = None       # the workbook sheet with the specimens
@@ -150,6 +152,7 @@ def read_study(path) -> Study:
                            f"known keys are {', '.join(sorted(KNOWN_KEYS))}")
     pops = None
     priors: dict[str, dict[str, Any]] = {}
+    cracks: dict[str, Any] = {}
     if "populations" in raw:
         table = raw["populations"]
         if not isinstance(table, dict) or not table:
@@ -161,6 +164,8 @@ def read_study(path) -> Study:
         for name, spec in table.items():
             if isinstance(spec, dict) and "prior" in spec:
                 priors[name] = dict(spec["prior"])
+            if isinstance(spec, dict) and ("crack" in spec or "shape_factor" in spec):
+                cracks[name] = {key: spec[key] for key in ("crack", "shape_factor") if key in spec}
     unit = None
     if "unit" in raw:
         try:
@@ -180,6 +185,7 @@ def read_study(path) -> Study:
     study = Study(**_table_keys(path, raw), populations=pops, unit=unit, confidence=confidence, specimens=specimens,
                   title=raw.get("title"), seed=raw.get("seed"), length_unit=raw.get("length_unit"),
                   geometries=geometries, component=component, priors=priors, path=path,
+                 toughness=raw.get("toughness"), cracks=cracks,
                   geometry=raw.get("geometry"), lots=_lots(path, raw.get("lots")))
     # a mistake in a geometry or the component must stop the run now, not after the fits
     study.geometry_objects()

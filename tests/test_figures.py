@@ -189,3 +189,31 @@ def test_lot_plots_are_readable_and_share_axes():
         assert [lab.split(":")[0] for lab in labels] == list(comparison.lots)
         assert len([ln for ln in ax.lines if not ln.get_label().startswith("_")]) == len(comparison.lots)
     _check(fig, "lots_probability_plots")
+
+
+def test_flaw_size_plot_is_readable_and_rings_the_flagged():
+    from flawmix.fracture import analyse_flaws
+
+    folder = Path(__file__).resolve().parents[1] / "examples" / "flaw_sizes"
+    study = read_study(folder / "study.toml")
+    analysis = analyse_flaws(fm.read_specimens(study.specimens, study.populations, study.unit), study)
+    ax = plots.flaw_size_plot(analysis)
+    ringed = [c for c in ax.collections if c.get_label().startswith("to look at again")]
+    flagged = analysis.flagged
+    assert len(ringed) == 1 and len(ringed[0].get_offsets()) == len(flagged) > 0
+    lines = [ln for ln in ax.lines if "K_Ic =" in ln.get_label()]
+    assert len(lines) == len(analysis.populations)
+    # the pores' line (penny cracks, Y = 2/√π, Sneddon 1946): σ·(2/√π)·√a = K_Ic along it, µm → m
+    pores = [ln for ln in lines if ln.get_label().startswith("pores")][0]
+    a, s = (np.asarray(v, dtype=float) for v in pores.get_data())
+    np.testing.assert_allclose(s * 2 / np.sqrt(np.pi) * np.sqrt(a * 1e-6), 5.5, rtol=1e-12)
+    _check(ax.figure, "flaw_size_plot")
+
+
+def test_probability_plot_rings_the_origins_to_reexamine(demo):
+    _, result, *_ = demo
+    ids = list(result.specimens.ids[:2])
+    ax = plots.probability_plot(result, mark=ids)
+    ringed = [c for c in ax.collections if c.get_label().startswith("origin label to re-examine")]
+    assert len(ringed) == 1 and len(ringed[0].get_offsets()) == 2
+    _check(ax.figure, "demo_probability_plot_marked")
