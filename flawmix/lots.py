@@ -822,8 +822,12 @@ def population_verdict(name: str, change: dict, same: dict, modulus: dict, lots:
         if rejects(modulus["p_value"]):
             text += f"; the modulus changed too ({evidence_words(modulus['p_value'])}, p = {modulus['p_value']:.2g})"
     if change.get("probability_stronger") is not None:
-        text += f"; posterior probability it got stronger {change['probability_stronger']:.3f}"
+        text += f", posterior probability that σθ rose {_probability_words(change['probability_stronger'])}"
     return text
+
+
+def _probability_words(p: float) -> str:
+    return "> 0.999" if p > 0.999 else "< 0.001" if p < 0.001 else f"{p:.3f}"
 
 
 def _overall_sentence(overall: dict, where: str, unit: str) -> str:
@@ -965,7 +969,8 @@ def format_comparison(c: LotComparison) -> str:
                      f"{fmt.interval(*ch['ratio_interval'], kind=lambda x: fmt.significant(x, 3))}; stress at "
                      f"{100 * st['probability']:g} % (alone): {st['ratio']:.3f} "
                      f"{fmt.interval(*st['ratio_interval'], kind=lambda x: fmt.significant(x, 3))}"
-                     + (f"; P(stronger) {ch['probability_stronger']:.3f}" if "probability_stronger" in ch else ""))
+                     + (f"; P(σθ rose) {_probability_words(ch['probability_stronger'])}"
+                        if "probability_stronger" in ch else ""))
         lines.append("")
     lines.append("Verdict: " + c.verdict)
     return "\n".join(lines)

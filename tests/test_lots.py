@@ -310,3 +310,58 @@ def test_size_and_power_by_simulation():
     assert other < 0.05 + band, other
     power = np.nanmean(changed["p_same_population"][:, 1] < 0.05)
     assert power > 0.2, power                    # reported by studies/lots_size_power.py
+
+
+def test_posterior_probability_of_getting_stronger_matches_the_likelihood_at_large_n():
+    """One complete population per lot, 150 specimens each, σθ 3 % up: with weak priors the
+    posterior P(σθ rose) approaches Φ(r), r the signed root of the likelihood ratio of
+    "equal σθ" (Bernstein–von Mises; r from a brute-force scipy maximisation here)."""
+    from scipy import stats
+
+    rng = np.random.default_rng(31)
+    frame = pd.concat([campaign(rng, 150, {"pore": (10.0, 500.0)}, lot="A"),
+                       campaign(rng, 150, {"pore": (10.0, 515.0)}, lot="B")], ignore_index=True)
+    pops = {"pores": {"kind": "volume", "labels": ["pore"]}}
+    c = L.compare_lots(frame, pops, method="bayes", seed=3)
+    lots = L.read_lots(frame, pops)
+    sp = lots.specimens
+    args = (sp.strength, sp.failed, sp.candidates, lots.lot)
+    top = brute_maximum(*args, 2, starts=3)
+    equal = lambda x: -brute_loglik(np.array([[[x[0], x[2]]], [[x[1], x[2]]]]), *args, 2)
+    res = optimize.minimize(equal, [np.log(10), np.log(10), np.log(sp.strength).mean()], method="Nelder-Mead",
+                            options={"xatol": 1e-10, "fatol": 1e-12, "maxiter": 20000})
+    ratio = c.population("pores").strength_change["ratio"]
+    r = np.sign(ratio - 1) * np.sqrt(2 * (top + res.fun))
+    assert c.population("pores").strength_change["probability_stronger"] == pytest.approx(stats.norm.cdf(r), abs=0.04)
+
+
+def test_study_file_names_each_lots_table_and_geometry(tmp_path, capsys):
+    """[lots.NAME] tables give each lot's table and bar; the lots are then compared through
+    the material scale (the sized lot model) and the JSON names the reference geometry."""
+    rng = np.random.default_rng(12)
+    bars = {"large": {"type": "flexure-4pt", "width": 4, "depth": 3, "outer_span": 40, "inner_span": 20},
+            "small": {"type": "flexure-3pt", "width": 2, "depth": 1.5, "outer_span": 20}}
+    campaign(rng, 30, {"pore": (9.0, 480.0), "grinding": (14.0, 470.0)}).drop(columns="lot").to_csv(
+        tmp_path / "old.csv", index=False)
+    campaign(rng, 30, {"pore": (9.0, 560.0), "grinding": (14.0, 520.0)}).drop(columns="lot").to_csv(
+        tmp_path / "new.csv", index=False)
+    lines = ['[populations.pores]', 'kind = "volume"', 'labels = ["pore"]', '[populations.grinding]',
+             'kind = "surface"', 'labels = ["grinding"]',
+             '[lots.old]', 'specimens = "old.csv"', 'geometry = "large"',
+             '[lots.new]', 'specimens = "new.csv"', 'geometry = "small"']
+    for name, spec in bars.items():
+        lines += [f"[geometries.{name}]"] + [f'{k} = "{v}"' if isinstance(v, str) else f"{k} = {v}"
+                                             for k, v in spec.items()]
+    (tmp_path / "study.toml").write_text("\n".join(lines) + "\n")
+    assert main(["lots", "--study", str(tmp_path / "study.toml"), "--json", "--quiet"]) == 0
+    data = json.loads(capsys.readouterr().out)
+    assert data["lots"] == ["old", "new"] and data["reference_geometry"] in bars
+    assert [r["lot"] for r in data["populations"][0]["by_lot"]] == ["old", "new"]
+
+
+def test_cli_refuses_to_overwrite_a_plot(two_lots, tmp_path, capsys):
+    path, plot = tmp_path / "lots.csv", tmp_path / "lots.png"
+    two_lots.to_csv(path, index=False)
+    plot.write_bytes(b"keep")
+    assert main(["lots", str(path), "--plot", str(plot), "--quiet"]) == 2
+    assert "already exists" in capsys.readouterr().err and plot.read_bytes() == b"keep"
