@@ -328,7 +328,7 @@ def cmd_lots(args) -> int:
                                uncertain_origins=args.uncertain_origins or study.uncertain_origins or "count")
     seed = args.seed if args.seed is not None else (study.seed if study.seed is not None else 0)
     result = compare_lots(lots, study=study, method=args.method, confidence=args.confidence,
-                          probability=args.probability, seed=seed, progress=not args.quiet)
+                          probability=args.probability, seed=seed, progress=not args.quiet, calibrate=args.calibrate)
     if args.plot:
         from . import plots
         from .fonts import save
@@ -490,7 +490,10 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--probability", type=float,
                    help="failure probability at which stresses are also compared (default the study's [component] "
                         "target_probability, else 0.01)")
-    p.add_argument("--seed", type=int, help="seed of the sampler (default: the study file's, else 0)")
+    p.add_argument("--calibrate", type=int, default=0, metavar="N",
+                   help="parametric-bootstrap replicates per test for calibrated p-values (default 0: χ²; the χ² "
+                        "p-values are a little liberal at 30 specimens per lot, see README)")
+    p.add_argument("--seed", type=int, help="seed of the sampler and the calibration (default: the study file's, else 0)")
     p.add_argument("--plot", help="save the probability plots of the lots, population by population, to this PNG/SVG")
     p.add_argument("--force", action="store_true", help="replace an existing --plot file")
     p.add_argument("--json", action="store_true", help="print the comparison as JSON (schema in README)")

@@ -324,11 +324,12 @@ def model_from_arrays(y, failed, candidates, lot, n_lots: int, size_offsets=None
 
 
 def simulated_tests(moduli, scales, n_per_lot: int, replicates: int, seed=0, unidentified: float = 0.0,
-                    progress: bool = False) -> dict:
+                    progress: bool = False, calibrate: int = 0, calibrate_keys=("same_population", "same_modulus")) -> dict:
     """Likelihood-ratio p-values of campaigns drawn from known lots (a seeded size and power
     study). moduli, scales: (L, k) truth. Returns ``p_same_population`` and
     ``p_same_modulus`` (R, k) (NaN where a population had no failure in some lot) and
-    ``dropped`` (R,) True for those replicates."""
+    ``dropped`` (R,) True for those replicates. calibrate: bootstrap replicates of
+    :func:`calibrate_tests` per test (0: χ² p-values)."""
     from . import progress as _progress
     from .simulate import Design, simulate
 
@@ -349,7 +350,11 @@ def simulated_tests(moduli, scales, n_per_lot: int, replicates: int, seed=0, uni
             if any(not (cand[(lot == l) & failed]).any(axis=0).all() for l in range(L)):
                 bar.step(r + 1)
                 continue
-            tests = likelihood_ratio_tests(model_from_arrays(y, failed, cand, lot, L))
+            model = model_from_arrays(y, failed, cand, lot, L)
+            free = maximise(model)
+            tests = likelihood_ratio_tests(model, free)
+            if calibrate:
+                calibrate_tests(model, free, tests, calibrate, seed=(seed, r), keys=calibrate_keys)
             p_pop[r] = [t["same_population"]["p_value"] for t in tests]
             p_mod[r] = [t["same_modulus"]["p_value"] for t in tests]
             bar.step(r + 1)
@@ -422,6 +427,54 @@ def likelihood_ratio_tests(model: LotModel, free=None) -> list[dict]:
                          "converged": bool(opt.converged), "theta": opt.theta}
         out.append(rows)
     return out
+
+
+def calibrate_tests(model: LotModel, free, tests: list[dict], replicates: int, seed=0, progress: bool = False,
+                    keys=("same_population", "same_modulus")):
+    """Parametric-bootstrap p-values of every likelihood-ratio test: campaigns drawn from the
+    test's own null fit with each lot's observed design (survivors at their stresses, origins
+    unidentified as often), refitted free and tied; p = (1 + #{LR* ≥ LR}) / (1 + valid).
+    At small N the χ² reference is somewhat liberal (studies/lots_size_power.py measures it).
+    Adds ``p_value_chi2`` and ``calibration`` to each test named in ``keys`` and replaces
+    its ``p_value``."""
+    from . import progress as _progress
+    from .simulate import Design, simulate
+
+    if model.sized:
+        raise FlawmixError("calibrated tests for lots on several geometries are not available; drop --calibrate")
+    rng = np.random.default_rng(seed)
+    designs = []
+    for data in model.per_lot:
+        uncertain = data.failed & (data.candidates.sum(-1) > 1)
+        designs.append(Design(np.where(data.failed, np.inf, np.exp(data.y + model.centre)),
+                              float(uncertain.sum() / max(1, data.failed.sum())) if model.k > 1 else 0.0))
+    lot = np.concatenate([np.full(d.n, l) for l, d in enumerate(designs)])
+    with _progress.task("calibrating the tests (parametric bootstrap)", model.k * 2 * replicates, show=progress) as bar:
+        for j in range(model.k):
+            for n_test, (key, tie) in enumerate((("same_population", model.tie_same_population(j)),
+                                                 ("same_modulus", model.tie_same_modulus(j)))):
+                if key not in keys:
+                    continue
+                test = tests[j][key]
+                null = test["theta"]
+                batches = [simulate(lik.Model("concurrent", model.k), np.exp(null[model.columns(l)][:model.k]),
+                                    np.exp(null[model.columns(l)][model.k:] + model.centre), None, d, replicates, rng)
+                           for l, d in enumerate(designs)]
+                stats = []
+                for r in range(replicates):
+                    y, failed, cand = (np.concatenate([getattr(b, a)[r] for b in batches]) for a in
+                                       ("y", "failed", "candidates"))
+                    if all(cand[(lot == l) & failed].any(axis=0).all() for l in range(model.n_lots)):
+                        replica = model_from_arrays(y, failed, cand, lot, model.n_lots)
+                        top = maximise(replica)
+                        tied = maximise(replica, tie, _tied_starts(replica, top.theta, j))
+                        stats.append(max(0.0, 2.0 * (top.loglik - tied.loglik)))
+                    bar.step((2 * j + n_test) * replicates + r + 1)
+                stats = np.asarray(stats)
+                test["p_value_chi2"] = test["p_value"]
+                test["p_value"] = float((1 + np.sum(stats >= test["statistic"] - 1e-9)) / (1 + stats.size))
+                test["calibration"] = f"parametric bootstrap, {stats.size} of {replicates} replicates usable"
+    return tests
 
 
 # ---- intervals on changes: profile likelihood of a reparametrised model ---------------------
@@ -563,7 +616,7 @@ def _posterior_changes(lots: Lots, confidence: float, priors, seed) -> tuple[lis
 
 def compare_lots(lots, populations=None, *, study=None, method: str = "mle", confidence: float | None = None,
                  probability: float | None = None, seed: int | None = 0, progress: bool = False,
-                 order: Sequence[str] | None = None, **read_options) -> "LotComparison":
+                 order: Sequence[str] | None = None, calibrate: int = 0, **read_options) -> "LotComparison":
     """Compare lots population by population: did a process change move each flaw population?
 
     lots: a :class:`Lots` (from :func:`read_lots`) or what :func:`read_lots` accepts.
@@ -574,6 +627,8 @@ def compare_lots(lots, populations=None, *, study=None, method: str = "mle", con
     study's [component] target_probability, else 1 %).
     order: the lot names in order (the first is the baseline; default the study's lots,
     else their order of appearance).
+    calibrate: parametric-bootstrap replicates per test (0: the χ² reference); the χ²
+    p-values are a little liberal at small N (studies/lots_size_power.py).
     """
     from . import progress as _progress
 
@@ -596,6 +651,10 @@ def compare_lots(lots, populations=None, *, study=None, method: str = "mle", con
         free = maximise(model)
         bar.step(1, "free fit")
         tests = likelihood_ratio_tests(model, free)
+        if calibrate:
+            if calibrate < 19:
+                raise FlawmixError(f"calibrate needs at least 19 replicates (got {calibrate}); 199 or more is usual")
+            calibrate_tests(model, free, tests, calibrate, seed, progress)
         bar.step(2, "likelihood-ratio tests")
         estimates = _per_lot_estimates(model, free, lots, confidence, problems)
         bar.step(3, "per-lot intervals")
@@ -677,7 +736,9 @@ class LotPopulation:
         return rejects(self.same_population["p_value"])
 
     def to_dict(self) -> dict:
-        test = lambda t: {"statistic": _num(t["statistic"]), "df": int(t["df"]), "p_value": _num(t["p_value"])}
+        test = lambda t: {"statistic": _num(t["statistic"]), "df": int(t["df"]), "p_value": _num(t["p_value"]),
+                          **({"p_value_chi2": _num(t["p_value_chi2"]), "calibration": t["calibration"]}
+                             if "calibration" in t else {})}
         by_lot = [{"lot": r["lot"], "n_failures": int(r["n_failures"]), "modulus": _num(r["modulus"]),
                    "characteristic_strength": _num(r["characteristic_strength"]),
                    "modulus_interval": [_num(x) for x in r["modulus_interval"]],

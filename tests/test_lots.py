@@ -365,3 +365,17 @@ def test_cli_refuses_to_overwrite_a_plot(two_lots, tmp_path, capsys):
     plot.write_bytes(b"keep")
     assert main(["lots", str(path), "--plot", str(plot), "--quiet"]) == 2
     assert "already exists" in capsys.readouterr().err and plot.read_bytes() == b"keep"
+
+
+def test_calibrated_p_values_come_from_the_null_fits_bootstrap(two_lots):
+    """Calibration keeps the statistics and replaces each p-value by a bootstrap share on the
+    grid 1/(B + 1); the χ² p-value is kept beside it."""
+    c = L.compare_lots(two_lots, POPS, calibrate=39, seed=5)
+    plain = L.compare_lots(two_lots, POPS)
+    for p, q in zip(c.populations, plain.populations):
+        t = p.same_population
+        assert t["statistic"] == pytest.approx(q.same_population["statistic"], abs=1e-9)
+        assert t["p_value_chi2"] == pytest.approx(q.same_population["p_value"], abs=1e-12)
+        used = int(t["calibration"].split(",")[1].split()[0])
+        assert round(t["p_value"] * (used + 1)) == pytest.approx(t["p_value"] * (used + 1), abs=1e-9)
+    assert c.population("grinding").same_population["p_value"] == pytest.approx(1 / 40)
