@@ -476,8 +476,6 @@ def build_parser() -> argparse.ArgumentParser:
     _add_quiet(p)
     p.set_defaults(func=cmd_plan)
 
-<<<<<<< HEAD
-=======
     p = _table_command(sub, "flaws", "measured flaw sizes against fracture toughness: implied K_Ic, critical sizes",
                        table_help)
     p.description = ("Needs a flaw_size column (µm unless its header says, e.g. 'flaw_size (mm)'; optional flaw_width "
@@ -490,7 +488,6 @@ def build_parser() -> argparse.ArgumentParser:
     _add_quiet(p)
     p.set_defaults(func=cmd_flaws)
 
->>>>>>> main
     p = sub.add_parser("lots", help="did a process change help? lots compared flaw population by flaw population")
     p.add_argument("specimens", nargs="*", help="one table with a 'lot' column, or one table per lot (named after "
                                                 "its file); may come from the study file ('specimens' or [lots])")
@@ -514,21 +511,6 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--json", action="store_true", help="print the comparison as JSON (schema in README)")
     _add_quiet(p)
     p.set_defaults(func=cmd_lots)
-<<<<<<< HEAD
-
-    p = _table_command(sub, "flaws", "measured flaw sizes against fracture toughness: implied K_Ic, critical sizes",
-                       table_help)
-    p.description = ("Needs a flaw_size column (µm unless its header says, e.g. 'flaw_size (mm)'; optional flaw_width "
-                     "= 2c and location) and the study file's toughness = K_Ic (MPa·√m); crack models per "
-                     "population from the study (default: volume penny, surface semi-elliptical, edge corner).")
-    p.add_argument("--stress", type=float, help="stress (in the strength unit) of the critical flaw sizes")
-    p.add_argument("--tolerance", type=float, help="relative agreement with K_Ic (default the study's, else 0.25)")
-    p.add_argument("--size-unit", help="unit of the flaw sizes shown (default as written in the table, else µm)")
-    p.add_argument("--json", action="store_true", help="print the analysis as JSON (schema in README)")
-    _add_quiet(p)
-    p.set_defaults(func=cmd_flaws)
-=======
->>>>>>> main
 
     p = _table_command(sub, "report", "run the whole analysis and write an HTML report folder", table_help)
     p.add_argument("--out", required=True, help="report folder to create (required; refuses to replace one without --force)")

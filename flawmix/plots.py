@@ -181,7 +181,7 @@ def probability_plot(result, ax=None, view: str = "populations", band: bool = Tr
         _crossover_marks(ax, dominance_changes(result.moduli, result.characteristic_strengths, names, lo, hi),
                          result.unit, lo, hi)
 
-    ringed = pos[pos["specimen"].isin(list(mark or ())) & pos["probability"].notna()]
+    ringed = pos[pos["specimen"].isin(list(mark) if mark is not None else []) & pos["probability"].notna()]
     if len(ringed):
         ax.scatter(ringed["strength"], _weibit(ringed["probability"]), s=170, facecolors="none", zorder=5,
                    edgecolors="#b0202a", linewidths=1.6, label=f"origin label to re-examine, {len(ringed)}")
@@ -412,8 +412,6 @@ def plan_plot(plan, ax=None):
     return ax
 
 
-<<<<<<< HEAD
-=======
 def flaw_size_plot(analysis, ax=None, title: str | None = None):
     """Strength against measured flaw size, both logarithmic, by population, with each
     population's σ ∝ a^(−1/2) line at K_Ic (solid) and at the ends of the agreement band
@@ -460,7 +458,6 @@ def flaw_size_plot(analysis, ax=None, title: str | None = None):
     ax.set_title(title or "Strength against flaw size: K = Y·σ·√a", fontsize=10)
     return ax
 
->>>>>>> main
 def lot_probability_plot(comparison, title: str | None = None):
     """Probability plots of the lots, one panel per population, all on the same axes: each
     lot's failures of that population at adjusted ranks within the lot, with the lot's own
@@ -510,53 +507,3 @@ def lot_probability_plot(comparison, title: str | None = None):
     right.set_ylabel("failure probability (%)")
     fig.suptitle(title or "Lots compared per population (adjusted ranks within each lot, (i − 0.5)/N)", fontsize=10)
     return fig
-<<<<<<< HEAD
-
-
-def flaw_size_plot(analysis, ax=None, title: str | None = None):
-    """Strength against measured flaw size, both logarithmic, by population, with each
-    population's σ ∝ a^(−1/2) line at K_Ic (solid) and at the ends of the agreement band
-    (dotted); specimens to look at again are ringed. ``analysis``: a
-    :class:`flawmix.fracture.FlawAnalysis`."""
-    ax = _ax(ax, (7.5, 6.4))
-    rows = analysis.specimens
-    measured = rows[np.isfinite(rows["flaw size"].astype(float)) & rows["population"].notna()]
-    sizes = measured["flaw size"].to_numpy(dtype=float)
-    strengths = measured["strength"].to_numpy(dtype=float)
-    if not sizes.size:
-        raise FlawmixError("no specimen has both a flaw size and one origin population to plot")
-    lo, hi = sizes.min() / 1.6, sizes.max() * 1.6
-    grid = np.geomspace(lo, hi, 200)
-    band = analysis.toughness.band
-    names = list(analysis.populations.index)
-    for j, name in enumerate(names):
-        colour, marker, filled = _style(j)
-        mine = measured[measured["population"] == name]
-        ax.scatter(mine["flaw size"], mine["strength"], marker=marker, s=38, zorder=4,
-                   facecolors=colour if filled else "white", edgecolors=colour, linewidths=1.4,
-                   label=f"{name}, {len(mine)} measured ({analysis.models[name].describe})")
-        ax.plot(grid, analysis.critical_stress(name, grid), color=colour, lw=1.5, zorder=3,
-                label=f"{name}: K_Ic = {analysis.toughness.value:.3g} MPa·√m")
-        for edge in band:
-            ax.plot(grid, analysis.critical_stress(name, grid, edge), color=colour, lw=1.0, ls=(0, (1.5, 2.5)),
-                    zorder=3, label=f"{name}: agreement band, {band[0]:.3g}–{band[1]:.3g} MPa·√m"
-                    if edge == band[0] else "_nolegend_")
-    flagged = analysis.flagged
-    flagged = flagged[np.isfinite(flagged["flaw size"].astype(float))]
-    if len(flagged):
-        ax.scatter(flagged["flaw size"], flagged["strength"], s=170, facecolors="none", edgecolors="#b0202a",
-                   linewidths=1.6, zorder=5, label=f"to look at again (toughness or location), {len(flagged)}")
-    ax.set_xscale("log")
-    ax.set_yscale("log")
-    ax.set_xlim(lo, hi)
-    ax.set_ylim(strengths.min() / 1.35, strengths.max() * 1.3)
-    _log_ticks(ax.xaxis, lo, hi)
-    _log_ticks(ax.yaxis, *ax.get_ylim())
-    ax.set_xlabel(f"flaw size a ({analysis.size_unit}), logarithmic")
-    ax.set_ylabel(f"strength ({analysis.unit}), logarithmic")
-    ax.grid(True, which="major", color="#dddddd", lw=0.6)
-    ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.13), ncol=2, fontsize=7.5, frameon=False)
-    ax.set_title(title or "Strength against flaw size: K = Y·σ·√a", fontsize=10)
-    return ax
-=======
->>>>>>> main

@@ -185,11 +185,7 @@ def read_study(path) -> Study:
     study = Study(**_table_keys(path, raw), populations=pops, unit=unit, confidence=confidence, specimens=specimens,
                   title=raw.get("title"), seed=raw.get("seed"), length_unit=raw.get("length_unit"),
                   geometries=geometries, component=component, priors=priors, path=path,
-<<<<<<< HEAD
-                 toughness=raw.get("toughness"), cracks=cracks,
-=======
                   toughness=raw.get("toughness"), cracks=cracks,
->>>>>>> main
                   geometry=raw.get("geometry"), lots=_lots(path, raw.get("lots")))
     # a mistake in a geometry or the component must stop the run now, not after the fits
     study.geometry_objects()
