@@ -195,6 +195,33 @@ def concurrent_derivatives_batch(data: Data, theta: np.ndarray):
     return ll, g, hess
 
 
+def censored_derivatives_batch(log_strength: np.ndarray, failed: np.ndarray, theta: np.ndarray):
+    """Log-likelihood (E,), gradient (E, 2), Hessian (E, 2, 2) of one population (k = 1) for E
+    data sets (log_strength, failed: (E, N)) at theta (E, 2) = [u, v].
+
+    The concurrent likelihood with k = 1, every failure certain: the certain-failure terms of
+    :func:`concurrent_derivatives` from sufficient statistics (failure count, Σ ln σ), batched.
+    With every origin identified the concurrent likelihood is the sum of these per population,
+    each population's failures alone with every other specimen suspended."""
+    u, v = theta[:, 0], theta[:, 1]
+    m = np.exp(u)
+    r = failed.sum(axis=1).astype(float)
+    sum_y = np.einsum("en,en->e", log_strength, failed)
+    z = m[:, None] * (log_strength - v[:, None])
+    with np.errstate(over="ignore"):
+        H = np.exp(z)
+    S0 = H.sum(axis=1)
+    Hz = H * z
+    S1 = Hz.sum(axis=1)
+    S2 = np.einsum("en,en->e", Hz, z)
+    zc = m * (sum_y - r * v)
+    ll = r * u - sum_y + zc - S0
+    grad = np.stack([r + zc - S1, m * (S0 - r)], axis=1)
+    uv = m * (S1 + S0 - r)
+    hess = np.stack([np.stack([zc - S2 - S1, uv], axis=1), np.stack([uv, -m * m * S0], axis=1)], axis=1)
+    return ll, grad, hess
+
+
 def starting_responsibilities(data: Data, split: str = "by-count") -> np.ndarray:
     """(..., N, k) a first split of each failure over its candidates: in proportion to each
     candidate's certain failures (``by-count``) or equally (``equal``); 0 for survivors."""

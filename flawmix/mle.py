@@ -10,11 +10,13 @@ from __future__ import annotations
 import warnings as _warnings
 
 import numpy as np
-from scipy import stats as _sstats
+from scipy import special as _sspecial
 
 from . import likelihood as lik
 from .censored import censored_weibull_mle, weibull_regression
+from .endpoints import batched_profile_intervals
 from .errors import FlawmixError, FlawmixWarning
+from .labelled import labelled_optimum
 from .evidence import verdict_sentence
 from .optimize import newton_maximise, profile_interval, wald_interval
 from .pivots import pivot_quantiles
@@ -65,6 +67,11 @@ def _maximise(data: lik.Data, tie=None, start=None):
     k = data.k
     lower, upper = _bounds(k)
     deriv = lambda t: lik.concurrent_derivatives(data, t)
+    score_tol = 1e-10 * max(1.0, data.y.size / 1000.0)
+    if data.certain:   # labelled: the maximum in closed form, unique (labelled.py)
+        closed = labelled_optimum(data, tie, score_tol)
+        if closed is not None:
+            return closed, deriv, lower, upper
     # Unidentified origins can make the likelihood multi-modal: try two EM splits.
     # (One start for big data: its likelihood is too sharply peaked for a second mode to matter.)
     two = not data.certain and data.y.size <= 10_000
@@ -74,8 +81,7 @@ def _maximise(data: lik.Data, tie=None, start=None):
         theta0 = _em_start(data, split) if isinstance(split, str) else np.array(split, dtype=float)
         if tie is not None:  # common modulus: start all moduli at their mean
             theta0[:k] = np.mean(theta0[:k])
-        opt = newton_maximise(deriv, theta0, tie=tie, lower=lower, upper=upper,
-                              score_tol=1e-10 * max(1.0, data.y.size / 1000.0))
+        opt = newton_maximise(deriv, theta0, tie=tie, lower=lower, upper=upper, score_tol=score_tol)
         if best is None or opt.loglik > best.loglik + 1e-9:
             best = opt
     return best, deriv, lower, upper
@@ -277,8 +283,13 @@ def fit_mle(
     mod_int, str_int, frac_int = [], [], [None] * k
 
     problems: list[str] = []
+    batched = {}
+    if method == "profile" and tie is None and spec.name == "concurrent" and spec.size_offsets is None:
+        batched = batched_profile_intervals(data, opt, confidence, lower, upper)   # all ends in one solve
 
     def interval(index, limits=(-np.inf, np.inf)):
+        if index in batched:
+            return batched[index]
         if method == "profile":
             return profile_interval(deriv, opt, index, confidence, tie=tie, lower=lower, upper=upper, limits=limits,
                                     problems=problems)
@@ -331,7 +342,7 @@ def fit_mle(
     if tests and k >= 2 and not common_modulus and model == "concurrent":
         common, *_ = _maximise(data, common_modulus_tie(k), start=opt.theta)
         stat = max(0.0, 2.0 * (opt.loglik - common.loglik))
-        p = float(_sstats.chi2.sf(stat, k - 1))
+        p = float(_sspecial.chdtrc(k - 1, stat))   # = scipy.stats.chi2.sf, without its overhead
         result_tests.append(HypothesisTest(
             name="common-modulus",
             statistic=stat, df=k - 1, p_value=p, method="likelihood ratio, χ²",

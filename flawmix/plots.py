@@ -457,3 +457,53 @@ def flaw_size_plot(analysis, ax=None, title: str | None = None):
     ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.13), ncol=2, fontsize=7.5, frameon=False)
     ax.set_title(title or "Strength against flaw size: K = Y·σ·√a", fontsize=10)
     return ax
+
+def lot_probability_plot(comparison, title: str | None = None):
+    """Probability plots of the lots, one panel per population, all on the same axes: each
+    lot's failures of that population at adjusted ranks within the lot, with the lot's own
+    fitted line (solid: the baseline lot). Returns the Figure."""
+    plt = _plt()
+    pos = comparison.plotting_positions()
+    lines = comparison.lines()
+    names = [p.name for p in comparison.populations]
+    k = len(names)
+    # the same limits on every panel (set one by one: shared log axes would share one locator)
+    fig, axes = plt.subplots(1, k, figsize=(3.6 * k + 0.8, 5.4), constrained_layout=True, squeeze=False)
+    s = comparison.data.specimens.strength
+    lo, hi = s.min() / 1.25, s.max() * 1.12
+    grid = np.geomspace(lo, hi, 300)
+    weib = _weibit(pos["probability"]) if len(pos) else np.array([-3.0, 1.0])
+    ymin, ymax = float(np.min(weib)) - 0.8, max(float(np.max(weib)) + 0.9, 1.4)
+    for j, (ax, name) in enumerate(zip(axes[0], names)):
+        for l, lot in enumerate(comparison.lots):
+            colour, marker, filled = _style(l)
+            mine = pos[(pos["population"] == name) & (pos["lot"] == lot)]
+            ax.scatter(mine["strength"], _weibit(mine["probability"]), marker=marker, s=34, zorder=4,
+                       facecolors=colour if filled else "white", edgecolors=colour, linewidths=1.3,
+                       label=f"{lot}: {len(mine)} failures")
+            row = lines[(lines["population"] == name) & (lines["lot"] == lot)].iloc[0]
+            cdf = -np.expm1(-(grid / row["characteristic_strength"]) ** row["modulus"])
+            ax.plot(grid, _weibit(cdf), color=colour, lw=1.4, ls="-" if l == 0 else (0, (5, 3)), zorder=3,
+                    label=f"{lot}: m {row['modulus']:.3g}, σθ {row['characteristic_strength']:.4g}")
+        ax.set_xlim(lo, hi)
+        _stress_axis(ax, comparison.unit)
+        # only ticks inside the range: spare tick labels of one panel must not sit over the next
+        ax.set_xticks([t for t in ax.xaxis.get_major_locator().tick_values(lo, hi) if lo <= t <= hi])
+        ax.set_xlim(lo, hi)
+        ax.set_ylim(ymin, ymax)
+        ax.grid(True, which="major", color="#dddddd", lw=0.6)
+        p = comparison.populations[j]
+        ax.set_title(f"{name}: p = {p.same_population['p_value']:.2g}", fontsize=9.5)
+        ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.16), ncol=1, fontsize=7.5, frameon=False)
+        if j:
+            ax.set_xlabel("strength, logarithmic")
+            ax.tick_params(labelleft=False)
+    axes[0][0].set_ylabel("ln ln 1/(1 − P)")
+    right = axes[0][-1].twinx()
+    right.set_ylim(ymin, ymax)
+    ticks = [t for t in PERCENT_TICKS if ymin <= _weibit(t / 100) <= ymax]
+    right.set_yticks([_weibit(t / 100) for t in ticks])
+    right.set_yticklabels([f"{t:g}" for t in ticks])
+    right.set_ylabel("failure probability (%)")
+    fig.suptitle(title or "Lots compared per population (adjusted ranks within each lot, (i − 0.5)/N)", fontsize=10)
+    return fig

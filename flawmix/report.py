@@ -475,8 +475,9 @@ def section_limits(a: Analysis, figs, tables) -> list[str]:
                                                           s.min() / 100, s.max() * 2)))
     for where, cross in sides:
         for c in cross:
+            outside = "" if s.min() <= c["stress"] <= s.max() else " (outside the tested strengths: an extrapolation)"
             out.append(f"<p>{_esc(where)}: <b>{_esc(c['below'])}</b> dominates below "
-                       f"{fmt.stress(c['stress'])} {_esc(main.unit)}, <b>{_esc(c['above'])}</b> above.</p>")
+                       f"{fmt.stress(c['stress'])} {_esc(main.unit)}, <b>{_esc(c['above'])}</b> above{outside}.</p>")
     if a.what_if is not None:
         table = a.what_if.reset_index()
         table.to_csv(tables / "what_if.csv", index=False)
@@ -485,9 +486,33 @@ def section_limits(a: Analysis, figs, tables) -> list[str]:
                                       "gain low (%)": f"gain {level} low (%)", "gain high (%)": f"gain {level} high (%)"})
         out.append("<p>Stress at a given failure probability after each change, alone and combined (a population "
                    "removed, e.g. pores by hot isostatic pressing; a risk halved, e.g. grinding damage by a finer "
-                   "finish):</p>")
-        out.append(_table(table, index=False, kinds={"failure probability": "probability"}))
+                   f"finish). Each cell: stress after the change, gain over today in %, its {level} "
+                   f"(every column: tables/what_if.csv):</p>")
+        wide = _what_if_wide(a.what_if, main.unit)
+        out.append(_table(wide, index=False, kinds={c: "text" for c in wide.columns}))
     return out
+
+
+def _what_if_wide(what_if, unit: str):
+    """The what-if table with one row per change and one column per body and failure
+    probability, each cell "stress (gain % [low, high])"; the row "today" gives the stresses
+    before any change."""
+    import pandas as pd
+
+    t = what_if.reset_index()
+    columns = list(dict.fromkeys(zip(t["body"], t["failure probability"])))
+    def head(body, prob):
+        return f"{body}, P = {fmt.probability(prob)} ({unit})"
+    rows = [{"change": "today", **{head(b, q): fmt.stress(t[(t["body"] == b) & (t["failure probability"] == q)]
+                                                        ["before"].iloc[0]) for b, q in columns}}]
+    for change, group in t.groupby("change", sort=False):
+        row = {"change": change}
+        for b, q in columns:
+            r = group[(group["body"] == b) & (group["failure probability"] == q)].iloc[0]
+            row[head(b, q)] = (f"{fmt.stress(r['after'])} ({fmt.percent(r['gain (%)'])} % "
+                               f"[{fmt.percent(r['gain low (%)'])}, {fmt.percent(r['gain high (%)'])}])")
+        rows.append(row)
+    return pd.DataFrame(rows)
 
 
 def section_component(a: Analysis, figs, tables) -> list[str]:

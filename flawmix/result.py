@@ -458,8 +458,9 @@ def format_result(r: FitResult, warnings: bool = True) -> str:
         f"ambiguous {r.n_ambiguous}), survived {r.n_survived}; stress unit {r.unit}",
         "",
     ]
+    unbiased = any(p.modulus_unbiased is not None for p in r.populations)   # complete single samples only
     header = (f"{'population':<18}{'kind':<10}{'failures':>9}{'expected':>9}  {'modulus':>7}  {'(' + level + ')':<20}"
-              f"{'σθ':>8}  {'(' + level + ')':<18}{'m unbiased':>10}")
+              f"{'σθ':>8}  {'(' + level + ')':<18}" + (f"{'m unbiased':>10}" if unbiased else "")).rstrip()
     lines.append(header)
     lines.append("-" * len(header))
     for p in r.populations:
@@ -467,8 +468,10 @@ def format_result(r: FitResult, warnings: bool = True) -> str:
         si = fmt.interval(*p.strength_interval)
         lines.append(
             f"{p.name[:17]:<18}{p.kind:<10}{p.n_failures:>9}{p.expected_failures:>9.1f}  {fmt.modulus(p.modulus):>7}  "
-            f"{mi:<20}{fmt.stress(p.characteristic_strength):>8}  {si:<18}{fmt.modulus(p.modulus_unbiased):>10}"
+            f"{mi:<20}{fmt.stress(p.characteristic_strength):>8}  {si:<18}"
+            + (f"{fmt.modulus(p.modulus_unbiased):>10}" if unbiased else "")
         )
+        lines[-1] = lines[-1].rstrip()
     if not r.model.startswith("concurrent"):
         lines.append("")
         for p in r.populations:

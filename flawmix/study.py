@@ -28,7 +28,7 @@ from .units import stress_unit
 LOAD_KEYS = ("stress", "target_probability")   # [component] keys that describe the analysed load
 KNOWN_KEYS = {"unit", "confidence", "specimens", "populations", "geometries", "component",
               "seed", "title", "length_unit", "geometry", "sheet", "unidentified_words", "origin_separators",
-              "uncertain_origins", "toughness"}
+              "uncertain_origins", "toughness", "lots"}
 
 
 @dataclass(frozen=True)
@@ -53,6 +53,7 @@ class Study:
     unidentified_words: tuple[str, ...] = ()
     origin_separators: tuple[str, ...] | None = None
     uncertain_origins: str | None = None
+    lots: dict[str, dict[str, Any]] | None = None   # lot name -> {"specimens": Path, "geometry": name}
 
     def geometry_objects(self) -> dict:
         """The [geometries.NAME] tables as :class:`flawmix.geometry.Geometry` objects (built
@@ -184,13 +185,39 @@ def read_study(path) -> Study:
     study = Study(**_table_keys(path, raw), populations=pops, unit=unit, confidence=confidence, specimens=specimens,
                   title=raw.get("title"), seed=raw.get("seed"), length_unit=raw.get("length_unit"),
                   geometries=geometries, component=component, priors=priors, path=path,
-                 toughness=raw.get("toughness"), cracks=cracks,
-                  geometry=raw.get("geometry"))
+                  toughness=raw.get("toughness"), cracks=cracks,
+                  geometry=raw.get("geometry"), lots=_lots(path, raw.get("lots")))
     # a mistake in a geometry or the component must stop the run now, not after the fits
     study.geometry_objects()
     study.component_object()
     study.component_load()
     return study
+
+
+def _lots(path: Path, raw) -> dict[str, dict[str, Any]] | None:
+    """``lots = ["before", "after"]`` (names and order of a lot column), or ``[lots]`` with
+    ``NAME = "table.csv"`` or ``[lots.NAME]`` tables (``specimens``, ``geometry``)."""
+    if raw is None:
+        return None
+    if isinstance(raw, list) and raw and all(isinstance(x, str) for x in raw):
+        return {x: {} for x in raw}
+    if not isinstance(raw, dict) or not raw:
+        raise FlawmixError(f"{path}: 'lots' must list lot names (lots = [\"before\", \"after\"]) or be a [lots] "
+                           "table of NAME = \"table.csv\"")
+    out = {}
+    for name, spec in raw.items():
+        spec = {"specimens": spec} if isinstance(spec, str) else spec
+        if not isinstance(spec, dict):
+            raise FlawmixError(f"{path}: [lots] {name} = {spec!r}: write the lot's table as text "
+                               f"({name} = \"table.csv\") or a [lots.{name}] table")
+        bad = sorted(set(spec) - {"specimens", "geometry"})
+        if bad:
+            raise FlawmixError(f"{path}: [lots.{name}]: unknown key '{bad[0]}'; use 'specimens' (its table) and "
+                               "'geometry' (its geometry name)")
+        table = spec.get("specimens")
+        out[str(name)] = {"specimens": (path.parent / table).resolve() if table else None,
+                          "geometry": spec.get("geometry")}
+    return out
 
 
 def _table_keys(path: Path, raw: dict) -> dict:

@@ -199,3 +199,20 @@ def test_probability_plot_rings_the_origins_to_reexamine(demo):
     ringed = [c for c in ax.collections if c.get_label().startswith("origin label to re-examine")]
     assert len(ringed) == 1 and len(ringed[0].get_offsets()) == 2
     _check(ax.figure, "demo_probability_plot_marked")
+
+def test_lot_plots_are_readable_and_share_axes():
+    """The invented two-lot example (examples/lots/): one panel per population, every panel
+    on the same stress and probability axes, each lot's points and fitted line in each."""
+    from flawmix.lots import compare_lots
+
+    study = read_study(Path(__file__).resolve().parents[1] / "examples" / "lots" / "wheel_change.toml")
+    comparison = compare_lots(None, study=study)
+    fig = plots.lot_probability_plot(comparison)
+    panels = [ax for ax in fig.axes if ax.get_title()]
+    assert len(panels) == len(comparison.populations)
+    assert len({ax.get_xlim() for ax in panels}) == 1 and len({ax.get_ylim() for ax in panels}) == 1
+    for ax in panels:
+        labels = [c.get_label() for c in ax.collections]
+        assert [lab.split(":")[0] for lab in labels] == list(comparison.lots)
+        assert len([ln for ln in ax.lines if not ln.get_label().startswith("_")]) == len(comparison.lots)
+    _check(fig, "lots_probability_plots")
