@@ -294,11 +294,47 @@ def cmd_plan(args) -> int:
     return _emit(args, result)
 
 
+def cmd_flaws(args) -> int:
+    from .fracture import analyse_flaws
+
+    study, specimens = _load(args)
+    analysis = analyse_flaws(specimens, study, stress=args.stress, tolerance=args.tolerance, size_unit=args.size_unit)
+    if args.json:
+        print(json.dumps(analysis.to_dict(), indent=2, ensure_ascii=False))
+    else:
+        print(analysis)
+    return 0
+
+
 def demo_paths() -> tuple[Path, Path]:
     from importlib.resources import files
 
     base = files("flawmix") / "data"
     return Path(str(base / "seal_rings.csv")), Path(str(base / "seal_rings.toml"))
+
+
+def cmd_lots(args) -> int:
+    from .lots import compare_lots, read_lots_for_study
+    from .study import Study, parse_group_option, read_study
+
+    study = read_study(args.study) if args.study else Study()
+    populations = dict(parse_group_option(g) for g in args.group) if args.group else None
+    if args.plot and Path(args.plot).exists() and not args.force:   # refuse before the long part
+        raise FlawmixError(f"{args.plot}: already exists; choose another --plot file or add --force")
+    lots = read_lots_for_study(args.specimens, study, populations, order=args.lot or None, unit=args.unit,
+                               sheet=args.sheet if args.sheet is not None else study.sheet,
+                               unidentified_words=[*study.unidentified_words, *args.unidentified_word],
+                               origin_separators=args.origin_separator or study.origin_separators,
+                               uncertain_origins=args.uncertain_origins or study.uncertain_origins or "count")
+    seed = args.seed if args.seed is not None else (study.seed if study.seed is not None else 0)
+    result = compare_lots(lots, study=study, method=args.method, confidence=args.confidence,
+                          probability=args.probability, seed=seed, progress=not args.quiet)
+    if args.plot:
+        from . import plots
+        from .fonts import save
+
+        save(plots.lot_probability_plot(result), Path(args.plot), dpi=130, bbox_inches="tight")
+    return _emit(args, result, result)
 
 
 def cmd_report(args) -> int:
@@ -439,6 +475,39 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--json", action="store_true", help="print the plan as JSON")
     _add_quiet(p)
     p.set_defaults(func=cmd_plan)
+
+    p = _table_command(sub, "flaws", "measured flaw sizes against fracture toughness: implied K_Ic, critical sizes",
+                       table_help)
+    p.description = ("Needs a flaw_size column (µm unless its header says, e.g. 'flaw_size (mm)'; optional flaw_width "
+                     "= 2c and location) and the study file's toughness = K_Ic (MPa·√m); crack models per "
+                     "population from the study (default: volume penny, surface semi-elliptical, edge corner).")
+    p.add_argument("--stress", type=float, help="stress (in the strength unit) of the critical flaw sizes")
+    p.add_argument("--tolerance", type=float, help="relative agreement with K_Ic (default the study's, else 0.25)")
+    p.add_argument("--size-unit", help="unit of the flaw sizes shown (default as written in the table, else µm)")
+    p.add_argument("--json", action="store_true", help="print the analysis as JSON (schema in README)")
+    _add_quiet(p)
+    p.set_defaults(func=cmd_flaws)
+
+    p = sub.add_parser("lots", help="did a process change help? lots compared flaw population by flaw population")
+    p.add_argument("specimens", nargs="*", help="one table with a 'lot' column, or one table per lot (named after "
+                                                "its file); may come from the study file ('specimens' or [lots])")
+    _add_grouping(p)
+    p.add_argument("--lot", action="append", default=[], metavar="NAME",
+                   help="lot names in order, the first the baseline (repeat; default the study's lots, else the "
+                        "order they appear)")
+    p.add_argument("--method", default="mle", choices=["mle", "bayes"],
+                   help="mle (default; profile-likelihood intervals) or bayes (posterior estimates and the "
+                        "probability that each population got stronger); the tests are likelihood-ratio tests")
+    p.add_argument("--confidence", type=float, help="two-sided interval level (default 0.90)")
+    p.add_argument("--probability", type=float,
+                   help="failure probability at which stresses are also compared (default the study's [component] "
+                        "target_probability, else 0.01)")
+    p.add_argument("--seed", type=int, help="seed of the sampler (default: the study file's, else 0)")
+    p.add_argument("--plot", help="save the probability plots of the lots, population by population, to this PNG/SVG")
+    p.add_argument("--force", action="store_true", help="replace an existing --plot file")
+    p.add_argument("--json", action="store_true", help="print the comparison as JSON (schema in README)")
+    _add_quiet(p)
+    p.set_defaults(func=cmd_lots)
 
     p = _table_command(sub, "report", "run the whole analysis and write an HTML report folder", table_help)
     p.add_argument("--out", required=True, help="report folder to create (required; refuses to replace one without --force)")

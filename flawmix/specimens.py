@@ -27,7 +27,7 @@ SURVIVED_WORDS = {"survived", "survivor", "s", "runout", "run-out", "censored", 
 EXCLUDED_WORDS = {"excluded", "exclude", "invalid", "void", "discarded"}
 STRENGTH_NAMES = {"strength", "σf", "σ_f", "sigma_f", "fracture strength", "fracture stress", "failure stress"}
 COLUMNS = ("strength", "specimen", "origin", "status", "geometry")
-POPULATION_SETTINGS = ("kind", "labels", "prior")
+POPULATION_SETTINGS = ("kind", "labels", "prior", "crack", "shape_factor")   # the last two: flawmix.fracture
 
 
 @dataclass(frozen=True)
@@ -203,7 +203,7 @@ def make_populations(groups) -> tuple[Population, ...] | None:
                 if unknown:
                     raise FlawmixError(f"population '{name}': unknown setting '{unknown[0]}'"
                                        f"{suggest(unknown[0], POPULATION_SETTINGS)}; the settings are 'kind', "
-                                       "'labels' and 'prior'")
+                                       "'labels', 'prior', 'crack' and 'shape_factor'")
                 labels = spec.get("labels", [name])
                 if isinstance(labels, str):
                     labels = [labels]
