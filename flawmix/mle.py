@@ -285,7 +285,9 @@ def fit_mle(
     problems: list[str] = []
     batched = {}
     if method == "profile" and tie is None and spec.name == "concurrent" and spec.size_offsets is None:
-        batched = batched_profile_intervals(data, opt, confidence, lower, upper)   # all ends in one solve
+        batched = batched_profile_intervals(   # all end points in one solve (endpoints.py)
+            data, opt, confidence, lower, upper, problems=problems,
+            limits=lambda i: (lik.LOG_MODULUS_MIN, lik.LOG_MODULUS_MAX) if i < k else (-np.inf, np.inf))
 
     def interval(index, limits=(-np.inf, np.inf)):
         if index in batched:
