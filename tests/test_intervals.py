@@ -91,6 +91,77 @@ def test_profile_interval_endpoints_sit_on_the_chi_square_cut():
             assert top - best == pytest.approx(cut, abs=1e-5)
 
 
+def test_calibrated_interval_endpoints_sit_on_their_own_cut_offs():
+    # The default for concurrent populations moves each end to its bootstrap-calibrated drop
+    # (flawmix/calibration.py); checked as above with scipy.stats and scipy.optimize.
+    rng = np.random.default_rng(31)
+    frame = simulate_campaign(rng, n=40, survive_at=440)
+    r = fm.fit(frame, confidence=0.90)
+    drops = r.extras["calibration"].drops
+    k = len(r.populations)
+    s = frame["strength"].to_numpy()
+    for j, p in enumerate(r.populations):
+        assert p.interval_method == "profile (bootstrap-calibrated cut-off)"
+        mine = (frame["origin"] == p.name).to_numpy()
+
+        def ll(m, scale):
+            return (stats.weibull_min.logpdf(s[mine], m, scale=scale).sum()
+                    + stats.weibull_min.logsf(s[~mine], m, scale=scale).sum())
+
+        top = ll(p.modulus, p.characteristic_strength)
+        for side, bound in enumerate(p.modulus_interval):
+            best = -optimize.minimize_scalar(lambda ls: -ll(bound, np.exp(ls)), bounds=(np.log(100), np.log(2000)),
+                                             method="bounded", options={"xatol": 1e-10}).fun
+            assert top - best == pytest.approx(drops[j, side], abs=1e-5)
+        for side, bound in enumerate(p.strength_interval):
+            best = -optimize.minimize_scalar(lambda lm: -ll(np.exp(lm), bound), bounds=(np.log(0.5), np.log(200)),
+                                             method="bounded", options={"xatol": 1e-10}).fun
+            assert top - best == pytest.approx(drops[k + j, side], abs=1e-5)
+
+
+def test_signed_root_drops_reduce_to_the_chi_square_cut_for_standard_normal_roots():
+    # If the bootstrap signed roots were exactly N(0, 1), each drop would be z²/2 = χ²₁(0.90)/2
+    from flawmix.calibration import signed_root_drops
+    roots = stats.norm.ppf((np.arange(200_000) + 0.5) / 200_000)[:, None]
+    np.testing.assert_allclose(signed_root_drops(roots, 0.90), stats.chi2.ppf(0.90, 1) / 2, rtol=1e-3)
+    shifted = signed_root_drops(roots + 0.3, 0.90)    # an upward bias: the lower end moves out
+    assert shifted[0, 0] > stats.chi2.ppf(0.90, 1) / 2 > shifted[0, 1]
+
+
+def test_calibration_is_seeded_and_the_default_is_calibrated_for_concurrent_fits():
+    rng = np.random.default_rng(34)
+    frame = simulate_campaign(rng, n=30, unknown=0.3, survive_at=450)
+    a, b = fm.fit(frame, seed=3), fm.fit(frame, seed=3)
+    assert a.populations[0].modulus_interval == b.populations[0].modulus_interval
+    assert fm.fit(frame, intervals="profile").populations[0].interval_method == "profile"
+    with pytest.raises(fm.FlawmixError, match="concurrent model"):
+        fm.fit(frame, model="exclusive", intervals="calibrated")
+
+
+def test_default_fit_gives_intervals_for_failure_probability_and_strength_at_a_probability():
+    rng = np.random.default_rng(35)
+    r = fm.fit(simulate_campaign(rng, n=30, unknown=0.2))
+    pf = r.failure_probability([300.0, 380.0])
+    assert np.all((0 < pf["low"]) & (pf["low"] < pf["estimate"]) & (pf["estimate"] < pf["high"]) & (pf["high"] < 1))
+    sp = r.strength_at([0.01, 0.1])
+    assert np.all((sp["low"] < sp["estimate"]) & (sp["estimate"] < sp["high"]))
+    # the estimates are the fitted model's own (scipy-free check: P_f(σ(p)) = p)
+    np.testing.assert_allclose(r.cdf(sp["estimate"].to_numpy()), [0.01, 0.1], rtol=1e-8)
+
+
+def test_log_quantile_gradient_matches_finite_differences():
+    # implicit-function gradient of ln σ_p against central differences (an independent route)
+    from flawmix.calibration import log_cumulative_hazard, log_quantile
+    theta = np.log([[5.0, 15.0, 430.0, 400.0]])
+    x, gradient = log_quantile(theta, 0.05)
+    assert log_cumulative_hazard(theta, x[:, None])[0][0] == pytest.approx(np.log(-np.log(0.95)), abs=1e-12)
+    for i in range(4):
+        step = np.zeros_like(theta)
+        step[0, i] = 1e-6
+        numeric = (log_quantile(theta + step, 0.05)[0] - log_quantile(theta - step, 0.05)[0]) / 2e-6
+        assert gradient[0, i] == pytest.approx(numeric[0], rel=1e-5, abs=1e-9)
+
+
 def test_intervals_contain_the_estimate_and_widen_with_confidence():
     rng = np.random.default_rng(32)
     frame = simulate_campaign(rng, n=40, unknown=0.2)
