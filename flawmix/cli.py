@@ -59,7 +59,7 @@ def _add_fit_options(p: argparse.ArgumentParser) -> None:
     p.add_argument("--reference-prior", action="store_true",
                    help="Bayes: prior 1/(σθ m) instead of the weak defaults (improper; see README)")
     p.add_argument("--confidence", type=float, help="two-sided interval level (default 0.90)")
-    p.add_argument("--intervals", default="auto", choices=["auto", "profile", "wald", "pivotal", "bootstrap", "none"],
+    p.add_argument("--intervals", default="auto", choices=["auto", "calibrated", "profile", "wald", "pivotal", "bootstrap", "none"],
                    help="interval method (default auto: pivotal for one complete population, else profile)")
     p.add_argument("--positions", default="hazen", choices=["hazen", "mean-rank", "median-rank"],
                    help="plotting positions of the graphical comparison estimate (default hazen, (i-0.5)/N)")
