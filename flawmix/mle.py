@@ -25,6 +25,7 @@ from .positions import adjusted_ranks, plotting_positions, position_rule, streng
 from .result import FitResult, HypothesisTest, PopulationEstimate
 from .specimens import Specimens, check_estimable
 
+NEWTON_STARTS = 3                # Newton runs from this many EM starts besides by-count
 PROFILE_MAX_SPECIMENS = 20_000   # above this, profile and Wald intervals agree to print precision
 
 
@@ -34,12 +35,13 @@ def _centred_data(specimens: Specimens) -> tuple[lik.Data, float]:
     return lik.Data(y - centre, specimens.failed, specimens.candidates), centre
 
 
-def _em_start(data: lik.Data, split: str, max_iter: int | None = None) -> np.ndarray:
-    """A starting point from a few EM steps; only uncertain failures are re-split."""
+def _em_start(data: lik.Data, split, max_iter: int | None = None) -> np.ndarray:
+    """A starting point from a few EM steps; only uncertain failures are re-split.
+    ``split``: a rule of :func:`likelihood.starting_responsibilities` or an (N, k) array."""
     k = data.k
     F = data.failed
     n_cand = data.candidates.sum(axis=1)
-    resp = lik.starting_responsibilities(data, split)
+    resp = lik.starting_responsibilities(data, split) if isinstance(split, str) else np.array(split, dtype=float)
     if max_iter is None:  # EM only has to get close; Newton finishes, so keep big data cheap
         max_iter = 3 if data.y.size <= 10_000 else 2
     uncertain = np.flatnonzero(F & (n_cand > 1))
@@ -58,6 +60,46 @@ def _em_start(data: lik.Data, split: str, max_iter: int | None = None) -> np.nda
     return np.concatenate([u, v])
 
 
+def _population_orders(k: int) -> list[tuple[int, ...]]:
+    """Which population takes the weakest block of uncertain failures, which the next, ...:
+    every order for k <= 3, the k rotations and their reverses for larger k."""
+    if k <= 3:
+        from itertools import permutations
+
+        return list(permutations(range(k)))
+    turns = [tuple(np.roll(np.arange(k), r)) for r in range(k)]
+    return turns + [t[::-1] for t in turns]
+
+
+def starting_splits(data: lik.Data) -> list:
+    """Starting splits of the uncertain failures for the EM start.
+
+    By certain counts and equally (both symmetric in the populations when every origin is
+    unidentified: Newton then stays on the symmetric ridge where all populations are equal, a
+    saddle), plus asymmetric splits by strength quantiles: the uncertain failures, in
+    strength order, are cut into k blocks and block b goes to population order[b] (when it is
+    a candidate; otherwise the failure keeps its by-count split)."""
+    splits: list = ["by-count"]
+    if data.certain:
+        return splits
+    splits.append("equal")
+    if data.y.size > 10_000:
+        return splits[:1]   # a sharply peaked likelihood: one start (see _maximise)
+    k = data.k
+    base = lik.starting_responsibilities(data, "by-count")
+    uncertain = np.flatnonzero(data.failed & (data.candidates.sum(axis=1) > 1))
+    ranked = uncertain[np.argsort(data.y[uncertain], kind="stable")]
+    blocks = np.array_split(ranked, k)
+    for order in _population_orders(k):
+        resp = base.copy()
+        for block, j in zip(blocks, order):
+            allowed = block[data.candidates[block, j]]
+            resp[allowed] = 0.0
+            resp[allowed, j] = 1.0
+        splits.append(resp)
+    return splits
+
+
 def _bounds(k: int) -> tuple[np.ndarray, np.ndarray]:
     lower = np.concatenate([np.full(k, lik.LOG_MODULUS_MIN), np.full(k, -np.inf)])
     upper = np.concatenate([np.full(k, lik.LOG_MODULUS_MAX), np.full(k, np.inf)])
@@ -73,13 +115,18 @@ def _maximise(data: lik.Data, tie=None, start=None):
         closed = labelled_optimum(data, tie, score_tol)
         if closed is not None:
             return closed, deriv, lower, upper
-    # Unidentified origins can make the likelihood multi-modal: try two EM splits.
-    # (One start for big data: its likelihood is too sharply peaked for a second mode to matter.)
-    two = not data.certain and data.y.size <= 10_000
-    starts = [start] if start is not None else (["by-count", "equal"] if two else ["by-count"])
+    # Unidentified origins can make the likelihood multi-modal: several EM starts; Newton
+    # from the by-count start and the NEWTON_STARTS best of the others, the best maximum kept.
+    if start is not None:
+        points = [np.array(start, dtype=float)]
+    else:
+        points = [_em_start(data, split) for split in starting_splits(data)]
+        if len(points) > NEWTON_STARTS + 1:
+            values = [lik.concurrent_loglik(data, p[:k], p[k:]) for p in points[1:]]
+            ranked = np.argsort(values)[::-1][:NEWTON_STARTS]
+            points = [points[0]] + [points[1 + i] for i in ranked]
     best = None
-    for split in starts:
-        theta0 = _em_start(data, split) if isinstance(split, str) else np.array(split, dtype=float)
+    for theta0 in points:
         if tie is not None:  # common modulus: start all moduli at their mean
             theta0[:k] = np.mean(theta0[:k])
         opt = newton_maximise(deriv, theta0, tie=tie, lower=lower, upper=upper, score_tol=score_tol)
