@@ -627,6 +627,9 @@ def _accounting(table: RawTable, rows: dict, readings: dict) -> dict:
         "excluded_rows": excluded,
         "origins": {"unidentified": unidentified, "uncertain": int((readings["uncertain"] & failed).sum())},
     }
+FEW_FAILURES = 5     # below this many certain failures a population's estimate is flagged (common practice)
+
+
 def check_estimable(specimens: Specimens) -> list[str]:
     """Raise for populations with no failures; return warnings for weakly identified ones."""
     warnings: list[str] = list(specimens.warnings)   # doubts found while reading the table
@@ -655,4 +658,8 @@ def check_estimable(specimens: Specimens) -> list[str]:
                 )
             else:
                 warnings.append(f"population '{name}' has only one failure; its estimate is unreliable")
+        elif certain[j] < FEW_FAILURES:
+            warnings.append(f"population '{name}' has only {int(certain[j])} failure{'s' if certain[j] > 1 else ''} attributed to it with certainty "
+                            f"(fewer than {FEW_FAILURES}); its modulus and characteristic strength are weakly "
+                            "determined, and conclusions resting on it are not supported by the data")
     return warnings

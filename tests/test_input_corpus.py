@@ -21,6 +21,7 @@ import pytest
 
 from flawmix.cli import _load, build_parser, main
 from flawmix.errors import FlawmixError, FlawmixWarning
+from flawmix.specimens import check_estimable
 
 CORPUS = Path(__file__).parent / "corpus"
 BASE = dict(n=10, failed=9, survived=1, unidentified=1, ambiguous=1, populations=("inclusion", "pore"))
@@ -38,6 +39,7 @@ class Case:
     error: tuple[str, ...] | None = None       # fragments of the error message (besides the file name)
     result: dict | None = None                 # expected counts, populations, unit, excluded rows
     warns: tuple[str, ...] = ()                # one fragment per expected warning while reading
+    fit_warns: tuple[str, ...] | None = None   # one fragment per warning about the populations (before a fit)
     fit_exit: int | None = None                # exit status of `flawmix fit` (default: 2 for errors, 0 else)
     fit_note: str | None = None                # why the fit's own outcome is not asserted here
     fit_fails_now: str | None = None           # estimation-side fault still open (strict xfail: remove when fixed)
@@ -171,7 +173,8 @@ CASES = [
                                            populations=("pore",)), fit_note=ROBUST,
          fit_fails_now="internal error (ValueError: pivots need at least 2 specimens)"),
     Case("strength/two_specimens.csv", **ok(n=2, failed=2, survived=0, unidentified=0, ambiguous=0,
-                                            populations=("pore",))),
+                                            populations=("pore",)),
+         fit_warns=("population 'pore' has only 2 failures attributed to it with certainty",)),
     # ---- status -------------------------------------------------------------------------------
     Case("status/unknown_word.csv", **err("line 8", "column 'status'", "unknown status 'broke'", "write 'failed', "
                                           "'survived'")),
@@ -183,9 +186,12 @@ CASES = [
                                                      populations=("pore",))),
     # ---- origins ------------------------------------------------------------------------------
     Case("origin/unidentified_words.csv", **ok(n=12, failed=12, survived=0, unidentified=10, ambiguous=0,
-                                               populations=("pore",))),
+                                               populations=("pore",)),
+         fit_warns=()),      # one population: an unidentified origin can only be that population
     Case("origin/separators.csv", **ok(n=6, failed=6, survived=0, unidentified=0, ambiguous=3,
-                                       populations=("inclusion", "pore"))),
+                                       populations=("inclusion", "pore")),
+         fit_warns=("population 'inclusion' has only 1 failure attributed to it with certainty",
+                    "population 'pore' has only 2 failures attributed")),
     Case("origin/separators.csv", ("--origin-separator", "|"),
          **ok(("'pore / inclusion' (1) and 'pore or inclusion' (1) look like one origin",), n=6, failed=6,
               survived=0, unidentified=0, ambiguous=1,
@@ -231,12 +237,16 @@ CASES = [
                                                populations=tuple(f"flaw type {i:03d}" for i in range(200))),
          fit_note="200 populations of one failure each: a fit of 400 parameters, not an input question"),
     Case("origin/populations_0_1_2.csv", **ok(n=9, failed=9, survived=0, unidentified=0, ambiguous=0,
-                                              populations=("chip", "inclusion", "pore"))),
+                                              populations=("chip", "inclusion", "pore")),
+         fit_warns=("population 'chip' has only 2 failures attributed to it with certainty (fewer than 5)",
+                    "population 'inclusion' has only one failure")),
     Case("origin/one_failure_at_top.csv", **ok(n=6, failed=6, survived=0, unidentified=0, ambiguous=0,
                                                populations=("inclusion", "pore")), fit_note=ROBUST,
+         fit_warns=("population 'inclusion' has one failure, at the highest stress of all specimens",),
          fit_fails_now="numpy RuntimeWarnings (overflow in exp) from likelihood.py reach the user"),
     Case("origin/failures_above_all_others.csv", **ok(n=8, failed=8, survived=0, unidentified=0, ambiguous=0,
-                                                      populations=("inclusion", "pore"))),
+                                                      populations=("inclusion", "pore")),
+         fit_warns=("population 'inclusion' has only 3 failures attributed to it with certainty",)),
     # ---- encodings ------------------------------------------------------------------------------
     Case("encoding/utf8_bom.csv", **ok(n=5, failed=5, survived=0, unidentified=0, ambiguous=0,
                                        populations=("inclusión", "pore"))),
@@ -355,6 +365,11 @@ def _check_result(specimens, case: Case) -> None:
     assert len(messages) == len(case.warns), messages
     for fragment in case.warns:
         assert sum(fragment in m for m in messages) == 1, (fragment, messages)
+    if case.fit_warns is not None:
+        about_populations = check_estimable(specimens)[len(messages):]
+        assert len(about_populations) == len(case.fit_warns), about_populations
+        for fragment in case.fit_warns:
+            assert sum(fragment in m for m in about_populations) == 1, (fragment, about_populations)
 
 
 def _run_main(argv) -> tuple[int, str, str, list]:
