@@ -18,6 +18,7 @@ from .endpoints import batched_profile_intervals
 from .errors import FlawmixError, FlawmixWarning
 from .labelled import labelled_optimum
 from .evidence import verdict_sentence
+from .calibration import CALIBRATED_METHOD
 from .optimize import newton_maximise, profile_interval, wald_interval
 from .pivots import pivot_quantiles
 from .positions import adjusted_ranks, plotting_positions, position_rule, strength_order
@@ -164,13 +165,19 @@ def _regression(specimens: Specimens, j: int, rule: str, single=None, order=None
     return weibull_regression(np.log(specimens.strength[idx]), p)
 
 
-def _interval_method(intervals: str, specimens: Specimens, complete_single: bool) -> str:
-    if intervals not in ("auto", "profile", "wald", "pivotal", "none"):
-        raise FlawmixError(f"unknown interval method '{intervals}'; use auto, profile, wald, pivotal or none")
+def _interval_method(intervals: str, specimens: Specimens, complete_single: bool, calibratable: bool) -> str:
+    from .calibration import MAX_SPECIMENS as CALIBRATION_MAX_SPECIMENS
+
+    if intervals not in ("auto", "calibrated", "profile", "wald", "pivotal", "none"):
+        raise FlawmixError(f"unknown interval method '{intervals}'; use auto, calibrated, profile, wald, pivotal or none")
     method = intervals
     if method == "auto":
-        method = "pivotal" if complete_single else (
-            "profile" if specimens.n_specimens <= PROFILE_MAX_SPECIMENS else "wald")
+        n = specimens.n_specimens
+        method = "pivotal" if complete_single else "calibrated" if calibratable and n <= CALIBRATION_MAX_SPECIMENS \
+            else "profile" if n <= PROFILE_MAX_SPECIMENS else "wald"
+    if method == "calibrated" and not calibratable:
+        raise FlawmixError("bootstrap-calibrated intervals exist for the concurrent model with free moduli "
+                           "(one geometry); use intervals='profile'")
     if method == "pivotal" and not complete_single:
         raise FlawmixError("pivotal bounds exist only for one population without survivors; "
                            "use intervals='profile'")
@@ -273,12 +280,14 @@ def fit_mle(
     common_modulus: bool = False,
     tests: bool = True,
     geometries=None,
+    seed=0,
 ) -> FitResult:
     """Maximum-likelihood fit of every population under the named model.
 
     geometries: {name: Geometry or study-file table} for tables with a ``geometry`` column:
     each specimen's hazard then scales with its own effective size, and the fit reports the
-    material scale σ0 and σθ of every geometry.
+    material scale σ0 and σθ of every geometry. seed: the bootstrap that calibrates the
+    default intervals (flawmix/calibration.py).
     """
     if not 0 < confidence < 1:
         raise FlawmixError(f"confidence {confidence} must lie strictly between 0 and 1 (for example 0.90)")
@@ -325,7 +334,14 @@ def fit_mle(
     expected = resp.sum(axis=0)
 
     complete_single = k == 1 and specimens.n_survived == 0 and n >= 2   # pivots need two specimens
-    method = _interval_method(intervals, specimens, complete_single)
+    method = _interval_method(intervals, specimens, complete_single,
+                              calibratable=model == "concurrent" and not common_modulus and sized is None)
+    calibration = None
+    if method == "calibrated":
+        from .calibration import calibrate
+
+        calibration = calibrate(specimens, np.exp(u), np.exp(v + centre), confidence, seed=seed)
+        method = "profile" if calibration is None else "calibrated"
     m_hat = np.exp(u)
     unbiased = [None] * k
     if complete_single:
@@ -336,14 +352,17 @@ def fit_mle(
     problems: list[str] = []
     batched = {}
     if method == "profile" and tie is None and spec.name == "concurrent" and spec.size_offsets is None:
-        batched = batched_profile_intervals(data, opt, confidence, lower, upper)   # all ends in one solve
+        batched = batched_profile_intervals(   # all end points in one solve (endpoints.py)
+            data, opt, confidence, lower, upper, problems=problems,
+            limits=lambda i: (lik.LOG_MODULUS_MIN, lik.LOG_MODULUS_MAX) if i < k else (-np.inf, np.inf))
 
     def interval(index, limits=(-np.inf, np.inf)):
         if index in batched:
             return batched[index]
-        if method == "profile":
+        if method in ("profile", "calibrated"):
+            drops = None if calibration is None else tuple(calibration.drops[index])
             return profile_interval(deriv, opt, index, confidence, tie=tie, lower=lower, upper=upper, limits=limits,
-                                    problems=problems)
+                                    drops=drops, problems=problems)
         return wald_interval(opt, index, confidence, tie)
 
     for j in range(k):
@@ -361,7 +380,7 @@ def fit_mle(
             c, d = interval(k + j)
             mod_int.append((float(np.exp(a)), float(np.exp(b))))
             str_int.append((float(np.exp(c + centre)), float(np.exp(d + centre))))
-    if method in ("profile", "wald") and spec.n_extra == 1:
+    if method in ("profile", "wald") and spec.n_extra == 1:   # (calibration is concurrent only)
         lo_t, hi_t = interval(2 * k, (-30.0, 30.0))
         sig = lambda t: float(1.0 / (1.0 + np.exp(-t)))
         if spec.name == "exclusive":   # α is the log-odds of population 0 against population 1
@@ -383,7 +402,8 @@ def fit_mle(
             name=pop.name, kind=pop.kind, n_failures=int(certain[j]), n_possible=int(possible[j]),
             expected_failures=float(expected[j]), modulus=float(m_hat[j]),
             characteristic_strength=float(np.exp(v[j] + centre)),
-            modulus_interval=mod_int[j], strength_interval=str_int[j], interval_method=method,
+            modulus_interval=mod_int[j], strength_interval=str_int[j],
+            interval_method=CALIBRATED_METHOD if method == "calibrated" else method,
             modulus_unbiased=unbiased[j], regression_modulus=rm, regression_strength=rs,
             at_bound=bool(at_bound[j]), fraction=float(fractions[j]), fraction_interval=frac_int[j],
         ))
@@ -428,7 +448,8 @@ def fit_mle(
         checksum=specimens.checksum,
         specimens=specimens,
         extras={"iterations": opt.iterations, **_sized_extras(sized, specimens, m_hat, np.exp(v + centre)),
-                **_covariance(opt, tie, centre, spec, data)},
+                **_covariance(opt, tie, centre, spec, data),
+                **({} if calibration is None else {"calibration": calibration})},
         partial_population=partial_name,
     )
 
