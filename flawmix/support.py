@@ -101,3 +101,15 @@ def notes_at(result, body_scales, stresses) -> list[str]:
 
 def join_notes(*notes: str) -> str:
     return "; ".join(dict.fromkeys(n for part in notes for n in part.split("; ") if n))
+
+
+def short_note(note) -> str:
+    """A note cut to its marker for a crowded table cell: ``unsupported ('x')``, ``extrapolated``."""
+    if not isinstance(note, str) or not note:
+        return ""
+    parts = []
+    if "driven by '" in note:
+        parts.append(f"{UNSUPPORTED} ('{note.split(chr(39))[1]}')")
+    if "extrapolated" in note:
+        parts.append("extrapolated")
+    return ", ".join(parts)

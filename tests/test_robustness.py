@@ -254,3 +254,34 @@ def test_bootstrap_draws_of_a_weak_population_can_be_scaled_to_a_component():
     part = Geometry.from_spec("P", {"type": "sizes", "volume": 1000.0, "area": 3000.0})
     table = predict(result, coupon, part, probabilities=[1e-4], component_name="part").strengths_at
     assert 0 < table.loc[1e-4, "part low"] < table.loc[1e-4, "part"] < table.loc[1e-4, "part high"]
+
+
+def test_report_flags_a_population_with_few_failures(tmp_path):
+    """The demo seal rings with all but three pore origins written as unknown."""
+    import shutil
+
+    import pandas as pd
+
+    from flawmix.cli import demo_paths
+    from flawmix.report import write_report
+    from flawmix.study import read_study
+
+    csv, toml = demo_paths()
+    for f in csv.parent.glob("seal_ring*"):
+        shutil.copy(f, tmp_path / f.name)
+    table = pd.read_csv(csv)
+    origin = table["origin"].fillna("")
+    pores = table.index[origin.str.lower().str.contains("por") & ~origin.str.contains("|", regex=False)]
+    table.loc[pores[3:], "origin"] = "unknown"
+    table.to_csv(tmp_path / csv.name, index=False)
+    study = read_study(tmp_path / toml.name)
+    specimens = fm.read_specimens(study.specimens, study.populations, study.unit)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", fm.FlawmixWarning)
+        write_report(specimens, tmp_path / "out", study=study, bayes=False, boundary_replicates=0, seed=1)
+    page = (tmp_path / "out" / "report.html").read_text()
+    results = json.loads((tmp_path / "out" / "results.json").read_text())
+    support = {p["name"]: p["support"] for p in results["populations"]}
+    assert support["pores"].startswith("unsupported: only 3 certain failures")
+    assert "population &#x27;pores&#x27; has 3 certain failures (fewer than 5)" in page
+    assert page.count("unsupported") >= 2     # the estimates table and the warnings at least
