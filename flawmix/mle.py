@@ -423,6 +423,7 @@ def fit_mle(
     if not opt.converged:
         notes.append("the maximisation stopped before the score reached its tolerance")
     notes.extend(_degeneracy_notes(spec, specimens, theta, at_bound))
+    notes.extend(_vanishing_notes(specimens, expected, opt.converged))
     if model != "concurrent":
         notes.extend(_collapse_notes(model, specimens, np.exp(conc.theta[:k]), m_hat, at_bound))
     partial_name = specimens.populations[spec.partial_index].name if spec.name == "partial" else None
@@ -532,6 +533,22 @@ def _collapse_notes(model: str, specimens: Specimens, concurrent_moduli, moduli,
                          "likelihoods: this fit and its AIC/BIC are not meaningful. Compare models by PSIS-LOO "
                          "(Bayesian fits with proper priors)")
     return notes
+
+
+VANISHING_FAILURES = 0.5   # expected failures below this, none certain: the population fades out
+
+
+def _vanishing_notes(specimens: Specimens, expected, converged: bool) -> list[str]:
+    """A population without certain failures whose share of the uncertain ones shrinks towards
+    zero: the likelihood rises as it fades (σθ → ∞), so the maximisation cannot stop."""
+    if converged:
+        return []
+    certain = specimens.certain_failures()
+    return [f"population '{name}': it has no certain failure and its expected share of the uncertain ones "
+            f"falls to {expected[j]:.2g}: the likelihood is highest with this population absent, so "
+            f"{NO_FINITE_ESTIMATE}; merge it with another population or fit without it"
+            for j, name in enumerate(specimens.population_names)
+            if certain[j] == 0 and expected[j] < VANISHING_FAILURES]
 
 
 def _degeneracy_notes(spec: lik.Model, specimens: Specimens, theta: np.ndarray, at_bound) -> list[str]:

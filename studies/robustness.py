@@ -48,7 +48,8 @@ def _invariance_error(specimens, result, intervals) -> float:
     return worst
 
 
-def main(count=10_000, first=0, intervals="none", invariance_every=10):
+def run(count=10_000, first=0, intervals="none", invariance_every=10, echo=True) -> dict:
+    """The study; returns its figures (and prints them when ``echo``)."""
     outcome = collections.Counter()
     leaks = collections.Counter()
     unexplained, invariance = [], []
@@ -74,17 +75,22 @@ def main(count=10_000, first=0, intervals="none", invariance_every=10):
             invariance.append(_invariance_error(specimens, result, intervals))
         if (i + 1) % 1000 == 0:
             print(f"{i + 1} campaigns, {time.time() - start:.0f} s", file=sys.stderr, flush=True)
-    print(f"seeds {first}..{first + count - 1}, intervals={intervals}, {time.time() - start:.0f} s")
-    for key, n in sorted(outcome.items()):
-        print(f"  {key}: {n}")
-    print(f"  unexplained (seeds): {unexplained[:20]}")
     inv = np.array(invariance)
-    print(f"  unit invariance over 12 decades ({inv.size} campaigns): max relative difference {inv.max():.2e}; "
-          f"above 1e-9: {(inv > 1e-9).sum()}")
-    print(f"  library warnings escaping: {sum(leaks.values())}" + "".join(f"\n    {n} x {k}" for k, n in leaks.items()))
+    figures = {"outcome": dict(outcome), "unexplained": unexplained, "invariance_max": float(inv.max()),
+               "invariance_checked": int(inv.size), "leaks": dict(leaks)}
+    if echo:
+        print(f"seeds {first}..{first + count - 1}, intervals={intervals}, {time.time() - start:.0f} s")
+        for key, n in sorted(outcome.items()):
+            print(f"  {key}: {n}")
+        print(f"  unexplained (seeds): {unexplained[:20]}")
+        print(f"  unit invariance over 12 decades ({inv.size} campaigns): max relative difference {inv.max():.2e}; "
+              f"above 1e-9: {(inv > 1e-9).sum()}")
+        print(f"  library warnings escaping: {sum(leaks.values())}"
+              + "".join(f"\n    {n} x {k}" for k, n in leaks.items()))
+    return figures
 
 
 if __name__ == "__main__":
     args = sys.argv[1:]
-    main(int(args[0]) if args else 10_000, int(args[1]) if len(args) > 1 else 0,
+    run(int(args[0]) if args else 10_000, int(args[1]) if len(args) > 1 else 0,
          args[2] if len(args) > 2 else "none")

@@ -285,3 +285,31 @@ def test_report_flags_a_population_with_few_failures(tmp_path):
     assert support["pores"].startswith("unsupported: only 3 certain failures")
     assert "population &#x27;pores&#x27; has 3 certain failures (fewer than 5)" in page
     assert page.count("unsupported") >= 2     # the estimates table and the warnings at least
+
+
+def _study():
+    import importlib.util
+    from pathlib import Path
+
+    path = Path(__file__).resolve().parents[1] / "studies" / "robustness.py"
+    spec = importlib.util.spec_from_file_location("robustness_study", path)
+    module = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(module)
+    return module
+
+
+def _check_study(figures):
+    assert figures["unexplained"] == [], "fits that neither converged nor said no finite estimate exists"
+    assert figures["leaks"] == {}, "library warnings reached the user"
+    assert figures["invariance_max"] < 1e-9
+
+
+def test_robustness_study_on_two_hundred_campaigns():
+    _check_study(_study().run(200, first=50_000, echo=False))
+
+
+@pytest.mark.slow
+def test_robustness_study_on_ten_thousand_campaigns():
+    """studies/robustness.py over 10,000 seeded campaigns (N 5-500, m 2-60, 1-4 populations,
+    0-50 % unidentified, 0-20 % survivors)."""
+    _check_study(_study().run(10_000, first=0, echo=False))
