@@ -24,7 +24,6 @@ from .pivots import pivot_quantiles
 from .positions import adjusted_ranks, plotting_positions, position_rule, strength_order
 from .result import FitResult, HypothesisTest, PopulationEstimate
 from .specimens import Specimens, check_estimable
-from .support import small_population_notes
 from .bootstrap_health import MIN_USED, ratio_corrected, replicate_health
 
 NEWTON_STARTS = 3                # Newton runs from this many EM starts besides by-count
@@ -295,7 +294,6 @@ def fit_mle(
         raise FlawmixError(f"unknown model '{model}'; use one of {', '.join(lik.MODELS)}")
     position_rule(positions)
     notes = check_estimable(specimens)
-    notes += small_population_notes(specimens.population_names, specimens.certain_failures())
     for w in notes:
         _warnings.warn(w, FlawmixWarning, stacklevel=3)
     data, centre = _centred_data(specimens)

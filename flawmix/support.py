@@ -7,8 +7,7 @@ from __future__ import annotations
 
 import numpy as np
 
-FEW_FAILURES = 5       # fewer certain failures than this: a population's estimates are unsupported
-                       # (our convention; C1239 asks for 30 specimens per fit, from memory)
+from .specimens import FEW_FAILURES   # fewer certain failures: unsupported (the reader's warning says so too)
 DRIVING_SHARE = 0.5    # a population whose risk share exceeds this drives the number quoted
 UNSUPPORTED = "unsupported"
 
@@ -25,13 +24,6 @@ def support_words(n_certain: int, n_possible: int | None = None) -> str:
     if not is_weak(n):
         return f"supported: {failures}"
     return f"{UNSUPPORTED}: only {failures}, fewer than {FEW_FAILURES}; its estimates and what they drive are weak"
-
-
-def small_population_notes(names, certain) -> list[str]:
-    """One warning per population with fewer than FEW_FAILURES certain failures."""
-    return [f"population '{name}' has {int(n)} certain failure{'s' if n != 1 else ''} (fewer than {FEW_FAILURES}): "
-            "its modulus and characteristic strength, and any prediction or what-if gain it drives, are not "
-            "supported by the data" for name, n in zip(names, certain) if is_weak(n)]
 
 
 def weak_populations(result) -> dict[str, int]:
@@ -104,12 +96,30 @@ def join_notes(*notes: str) -> str:
 
 
 def short_note(note) -> str:
-    """A note cut to its marker for a crowded table cell: ``unsupported ('x')``, ``extrapolated``."""
+    """A note cut to its marker for a table cell: ``unsupported ('x')``, ``extrapolated``
+    (a marker passes through unchanged)."""
     if not isinstance(note, str) or not note:
         return ""
+    if "driven by '" not in note and "extrapolated below" not in note:
+        return note
     parts = []
     if "driven by '" in note:
-        parts.append(f"{UNSUPPORTED} ('{note.split(chr(39))[1]}')")
-    if "extrapolated" in note:
+        parts.append(f"{UNSUPPORTED} ('{note.split('driven by ', 1)[1].split(chr(39))[1]}')")
+    if "extrapolated below" in note:
         parts.append("extrapolated")
     return ", ".join(parts)
+
+
+def marker_legend(notes) -> list[str]:
+    """The full sentences behind the markers of a table, once each."""
+    out = []
+    for note in notes:
+        for part in (note or "").split("; "):
+            if part.startswith("driven by '"):
+                name = part.split("'")[1]
+                count = part.split("(", 1)[1].split(",")[0]
+                out.append(f"numbers marked {UNSUPPORTED} ('{name}') are driven by '{name}' ({count}, fewer than "
+                           f"{FEW_FAILURES}; over half of the risk there): they are not supported by the data")
+            elif part.startswith("extrapolated below"):
+                out.append(f"numbers marked extrapolated lie {part[len('extrapolated '):]}")
+    return list(dict.fromkeys(out))

@@ -106,13 +106,14 @@ def _two_populations(rare_strengths, seed=3):
 
 def test_population_with_few_failures_is_flagged_in_table_json_and_warnings():
     specimens = _two_populations([250.0, 420.0])
-    with pytest.warns(fm.FlawmixWarning, match="'rare' has 2 certain failures \\(fewer than 5\\)"):
+    with pytest.warns(fm.FlawmixWarning, match="'rare' has only 2 failures attributed to it with certainty"):
         result = fm.fit(specimens)
     exported = result.to_dict()
     support = {p["name"]: p["support"] for p in exported["populations"]}
     assert support["rare"].startswith("unsupported: only 2 certain failures")
     assert support["big"] == "supported: 40 certain failures"
-    assert any("'rare' has 2 certain failures" in w for w in exported["warnings"])
+    assert any("'rare' has only 2 failures attributed to it with certainty (fewer than 5)" in w
+               for w in exported["warnings"])
     table = [line for line in str(result).splitlines() if line.startswith("rare")]
     assert table and table[0].endswith("unsupported")
     assert result.summary()["support"].to_dict() == {"big": "", "rare": "unsupported"}
@@ -214,11 +215,13 @@ def test_prediction_and_what_if_driven_by_a_weak_population_say_so_next_to_the_n
     stress = prediction.strengths_at.loc[1e-4, "part"]
     risk = (stress / (s * (10.0 / 1000.0) ** (1 / m))) ** m
     assert risk[1] / risk.sum() > 0.5
-    assert "driven by 'rare' (3 certain failures, fewer than 5" in notes.loc[1e-4]
-    assert "extrapolated below the lowest tested failure probability" in notes.loc[1e-4]
-    assert "unsupported" in str(prediction)
+    assert notes.loc[1e-4] == "unsupported ('rare'), extrapolated"
+    legend = [c for c in prediction.cautions if c.startswith("numbers marked unsupported")]
+    assert legend == ["numbers marked unsupported ('rare') are driven by 'rare' (3 certain failures, fewer than 5; "
+                      "over half of the risk there): they are not supported by the data"]
+    assert "numbers marked extrapolated lie below the lowest tested failure probability" in str(prediction)
     table = what_if(result, coupon, part, {"rare": 0.0}, probabilities=[1e-4], component_name="part")
-    assert "driven by 'rare'" in table.loc[("part", 1e-4), "note"]
+    assert table.loc[("part", 1e-4), "note"].startswith("unsupported ('rare')")
     assert "note" in json.dumps(prediction.to_dict())
 
 
@@ -283,7 +286,7 @@ def test_report_flags_a_population_with_few_failures(tmp_path):
     results = json.loads((tmp_path / "out" / "results.json").read_text())
     support = {p["name"]: p["support"] for p in results["populations"]}
     assert support["pores"].startswith("unsupported: only 3 certain failures")
-    assert "population &#x27;pores&#x27; has 3 certain failures (fewer than 5)" in page
+    assert "population &#x27;pores&#x27; has only 3 failures attributed to it with certainty" in page
     assert page.count("unsupported") >= 2     # the estimates table and the warnings at least
 
 
