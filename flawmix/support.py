@@ -123,3 +123,15 @@ def marker_legend(notes) -> list[str]:
             elif part.startswith("extrapolated below"):
                 out.append(f"numbers marked extrapolated lie {part[len('extrapolated '):]}")
     return list(dict.fromkeys(out))
+
+
+def sentence_note(note) -> str:
+    """A note for running text (the bottom line): ``unsupported: 'x' has only 3 certain
+    failures; extrapolated below the lowest tested failure probability 0.013``."""
+    out = []
+    for part in (note or "").split("; "):
+        if part.startswith("driven by '"):
+            out.append(f"{UNSUPPORTED}: '{part.split(chr(39))[1]}' has only {part.split('(', 1)[1].split(',')[0]}")
+        elif part:
+            out.append(part)
+    return "; ".join(out)

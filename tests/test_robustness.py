@@ -316,3 +316,19 @@ def test_robustness_study_on_ten_thousand_campaigns():
     """studies/robustness.py over 10,000 seeded campaigns (N 5-500, m 2-60, 1-4 populations,
     0-50 % unidentified, 0-20 % survivors)."""
     _check_study(_study().run(10_000, first=0, echo=False))
+
+
+def test_bottom_line_says_when_the_component_limit_rests_on_a_weak_population():
+    from flawmix.bottomline import bottom_line
+    from flawmix.geometry import Geometry
+    from flawmix.predict import predict
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", fm.FlawmixWarning)
+        result = fm.fit(_rare_weak_low_tail(), intervals="none")
+    coupon = Geometry.from_spec("B", {"type": "sizes", "volume": 10.0, "area": 60.0})
+    part = Geometry.from_spec("P", {"type": "sizes", "volume": 1000.0, "area": 3000.0})
+    prediction = predict(result, coupon, part, stresses=[100.0], probabilities=[1e-4], component_name="part")
+    line = bottom_line(result, prediction, load=100.0)
+    limit = [f for f in line.findings if "limits it at" in f][0]
+    assert "'rare' limits it" in limit and "unsupported: 'rare' has only 3 certain failures" in limit
