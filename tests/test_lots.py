@@ -370,3 +370,20 @@ def test_calibrated_p_values_come_from_the_null_fits_bootstrap(two_lots):
         used = int(t["calibration"].split(",")[1].split()[0])
         assert round(t["p_value"] * (used + 1)) == pytest.approx(t["p_value"] * (used + 1), abs=1e-9)
     assert c.population("grinding").same_population["p_value"] == pytest.approx(1 / 40)
+
+
+def test_three_lots_have_2_and_1_degrees_of_freedom_per_extra_lot():
+    """Three lots of one population with survivors: df 2(L − 1) = 4 and L − 1 = 2, and both
+    statistics equal twice the difference of brute-force maxima."""
+    rng = np.random.default_rng(77)
+    frame = pd.concat([campaign(rng, 25, {"pore": (9.0, s)}, survive_at=560.0, lot=name)
+                       for name, s in (("a", 500.0), ("b", 520.0), ("c", 540.0))], ignore_index=True)
+    pops = {"pores": {"kind": "volume", "labels": ["pore"]}}
+    lots = L.read_lots(frame, pops)
+    tests = L.likelihood_ratio_tests(L.lot_model(lots))[0]
+    assert (tests["same_population"]["df"], tests["same_modulus"]["df"]) == (4, 2)
+    sp = lots.specimens
+    args = (sp.strength, sp.failed, sp.candidates, lots.lot, 3)
+    free = brute_maximum(*args, starts=6)
+    for key, tie in (("same_population", (0, "both")), ("same_modulus", (0, "modulus"))):
+        assert tests[key]["statistic"] == pytest.approx(2 * (free - brute_maximum(*args, tie=tie, starts=6)), abs=2e-5)
