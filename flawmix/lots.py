@@ -866,7 +866,8 @@ def _percent_change(ratio: float) -> str:
     return f"{100 * (ratio - 1):+.0f} %".replace("-", "−")
 
 
-def population_verdict(name: str, change: dict, same: dict, modulus: dict, lots: Sequence[str]) -> str:
+def population_verdict(name: str, change: dict, same: dict, modulus: dict, lots: Sequence[str],
+                       moduli: Sequence[float] = ()) -> str:
     """One clause per population, in the words of the evidence scale (flawmix/evidence.py)."""
     p = same["p_value"]
     ratio, (lo, hi) = change["ratio"], change["ratio_interval"]
@@ -881,7 +882,8 @@ def population_verdict(name: str, change: dict, same: dict, modulus: dict, lots:
         text = (f"{name}: σθ {direction} {abs(100 * (ratio - 1)):.0f} % {span} from '{lots[0]}' to '{lots[-1]}', "
                 f"{words} of a change (p = {p:.2g})")
         if rejects(modulus["p_value"]):
-            text += f"; the modulus changed too ({evidence_words(modulus['p_value'])}, p = {modulus['p_value']:.2g})"
+            shift = f"m {moduli[0]:.3g} → {moduli[-1]:.3g}, " if len(moduli) else ""
+            text += f", and its modulus changed ({shift}{evidence_words(modulus['p_value'])}, p = {modulus['p_value']:.2g})"
     if change.get("probability_stronger") is not None:
         text += f", posterior probability that σθ rose {_probability_words(change['probability_stronger'])}"
     return text
@@ -919,7 +921,8 @@ def _assemble(lots, model, free, tests, estimates, changes, posterior, confidenc
             _add_posterior_change(change, stress, posterior[1], j, probability, confidence)
         same, modulus = tests[j]["same_population"], tests[j]["same_modulus"]
         pops.append(LotPopulation(pop.name, pop.kind, tuple(estimates[j]), same, modulus, change, stress,
-                                  population_verdict(pop.name, change, same, modulus, lots.names)))
+                                  population_verdict(pop.name, change, same, modulus, lots.names,
+                                                     [row["modulus"] for row in estimates[j]])))
     where = f"overall ({model.extras['reference_geometry']})" if model.sized else "overall (test specimen)"
     overall = overall_change(moduli, scales, lots.names, names, probability)
     component = _component_change(lots, study, model, moduli, scales, probability)
