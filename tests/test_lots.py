@@ -387,3 +387,31 @@ def test_three_lots_have_2_and_1_degrees_of_freedom_per_extra_lot():
     free = brute_maximum(*args, starts=6)
     for key, tie in (("same_population", (0, "both")), ("same_modulus", (0, "modulus"))):
         assert tests[key]["statistic"] == pytest.approx(2 * (free - brute_maximum(*args, tie=tie, starts=6)), abs=2e-5)
+
+
+def test_component_change_scales_each_population_by_its_own_size_and_modulus():
+    """The example's [component] (fixed sizes): each lot's σθ carried to the part by
+    σθ_part = σθ_bar·(k_bar/k_part)^(1/m) (DOMAIN.md section 4) and the part's stress at 1 %
+    solved here by brentq; the bar's effective sizes from the closed forms of DOMAIN.md."""
+    from pathlib import Path
+
+    from scipy.optimize import brentq
+
+    study = fm.study.read_study(Path(__file__).resolve().parents[1] / "examples" / "lots" / "wheel_change.toml")
+    c = L.compare_lots(None, study=study)
+    model = L.lot_model(L.read_lots_for_study(None, study))
+    held = [j for j, p in enumerate(c.populations) if not p.changed]
+    assert [c.populations[j].name for j in held] == c.overall["held_equal"] == ["pores", "inclusions"]
+    moduli, scales = L.selected_parameters(model, L.maximise(model), held)
+    np.testing.assert_allclose(moduli[0, held], moduli[1, held], rtol=1e-12)   # unchanged: one set for all lots
+    b, d, outer, inner = 4.0, 3.0, 40.0, 20.0
+    for l, row in enumerate(c.component["by_lot"]):
+        m = moduli[l]
+        v_bar = b * d * (m * inner + outer) / (2 * (m + 1) ** 2)
+        a_bar = (m * inner + outer) / (m + 1) ** 2 * (b * (m + 1) + d)
+        bar_size = np.array([a_bar[0], v_bar[1], v_bar[2]])    # grinding: surface; pores, inclusions: volume
+        part_size = np.array([1500.0, 1800.0, 1800.0])
+        scale = scales[l] * (bar_size / part_size) ** (1 / m)
+        stress = brentq(lambda x: np.sum((x / scale) ** m) + np.log1p(-0.01), 1.0, 5000.0, xtol=1e-10)
+        assert row["stress_at_probability"] == pytest.approx(stress, rel=1e-5)
+    assert c.component["name"] == "nozzle ring" and "Component 'nozzle ring'" in c.verdict
