@@ -59,7 +59,7 @@ def _add_fit_options(p: argparse.ArgumentParser) -> None:
     p.add_argument("--reference-prior", action="store_true",
                    help="Bayes: prior 1/(σθ m) instead of the weak defaults (improper; see README)")
     p.add_argument("--confidence", type=float, help="two-sided interval level (default 0.90)")
-    p.add_argument("--intervals", default="auto", choices=["auto", "profile", "wald", "pivotal", "bootstrap", "none"],
+    p.add_argument("--intervals", default="auto", choices=["auto", "calibrated", "profile", "wald", "pivotal", "bootstrap", "none"],
                    help="interval method (default auto: pivotal for one complete population, else profile)")
     p.add_argument("--positions", default="hazen", choices=["hazen", "mean-rank", "median-rank"],
                    help="plotting positions of the graphical comparison estimate (default hazen, (i-0.5)/N)")
@@ -160,10 +160,32 @@ def _bottom_line(args, study, specimens, result):
     return analyse(result, study, specimens, seed=seed)[0]
 
 
+def _reexamine_text(result) -> str:
+    """The labelled failures whose label is improbable at their strength, for the text output."""
+    from .origins import CHECK_THRESHOLD, specimens_to_reexamine
+
+    if len(result.populations) < 2:
+        return ""
+    flagged = specimens_to_reexamine(result)
+    if not len(flagged):
+        return ""
+    lines = [f"origin labels to re-examine (probability of the label at its strength, label withheld, below "
+             f"{CHECK_THRESHOLD:.0%}):"]
+    lines += [f"  {r['specimen']}: {r['strength']:.4g} {result.unit}, written '{r['origin']}', probability "
+              f"{r['label probability']:.2g}; most probable {r['most probable']}" for _, r in flagged.iterrows()]
+    return "\n".join(lines)
+
+
 def cmd_fit(args) -> int:
     study, specimens = _load(args)
     result = _fit_from_args(args, study, specimens)
-    return _emit(args, result, result, bottom=_bottom_line(args, study, specimens, result))
+    code = _emit(args, result, bottom=_bottom_line(args, study, specimens, result))
+    text = "" if args.json else _reexamine_text(result)
+    if text:
+        print()
+        print(text)
+    _print_warnings(result)
+    return code
 
 
 def cmd_compare(args) -> int:
@@ -298,7 +320,13 @@ def cmd_flaws(args) -> int:
     from .fracture import analyse_flaws
 
     study, specimens = _load(args)
-    analysis = analyse_flaws(specimens, study, stress=args.stress, tolerance=args.tolerance, size_unit=args.size_unit)
+    result = None
+    if not args.no_fit and len(specimens.populations) > 1:
+        from .fit import fit
+
+        result = fit(specimens, intervals="none")
+    analysis = analyse_flaws(specimens, study, stress=args.stress, tolerance=args.tolerance, size_unit=args.size_unit,
+                             fit=result)
     if args.json:
         print(json.dumps(analysis.to_dict(), indent=2, ensure_ascii=False))
     else:
@@ -484,6 +512,8 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--stress", type=float, help="stress (in the strength unit) of the critical flaw sizes")
     p.add_argument("--tolerance", type=float, help="relative agreement with K_Ic (default the study's, else 0.25)")
     p.add_argument("--size-unit", help="unit of the flaw sizes shown (default as written in the table, else µm)")
+    p.add_argument("--no-fit", action="store_true",
+                   help="skip the fit whose origin-label checks are shown beside the fracture-mechanics ones")
     p.add_argument("--json", action="store_true", help="print the analysis as JSON (schema in README)")
     _add_quiet(p)
     p.set_defaults(func=cmd_flaws)

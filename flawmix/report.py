@@ -232,7 +232,7 @@ def analyse(specimens, *, study=None, method="mle", compare_models=True, bayes=T
     from .lots import comparison_for_report
 
     a.extra["lots"] = comparison_for_report(specimens, study, conf, seed)   # None without a lot column
-    a.extra["flaws"] = _flaws(specimens, study)
+    a.extra["flaws"] = _flaws(specimens, study, mle)
     drawn = with_draws(main, seed) if main.model.startswith("concurrent") else main   # intervals on predictions
     a.bottom, _ = bottom_line_of(drawn, study, specimens, comparison, seed=seed)
     comp = study.component_object() if study else None
@@ -254,7 +254,7 @@ def analyse(specimens, *, study=None, method="mle", compare_models=True, bayes=T
     return a
 
 
-def _flaws(specimens, study):
+def _flaws(specimens, study, result):
     """The flaw-size analysis when the table has flaw sizes: a FlawAnalysis, or the one-line
     reason it cannot be made (shown in its section), or None without flaw sizes."""
     from .fracture import analyse_flaws, has_flaw_sizes
@@ -262,7 +262,7 @@ def _flaws(specimens, study):
     if not has_flaw_sizes(specimens):
         return None
     try:
-        return analyse_flaws(specimens, study)
+        return analyse_flaws(specimens, study, fit=result if len(result.populations) > 1 else None)
     except FlawmixError as exc:
         return str(exc)
 
@@ -633,7 +633,7 @@ def section_flaws(a: Analysis, figs, tables) -> list[str]:
     flagged = flaws.flagged
     if len(flagged):
         shown = flagged[["specimen", "strength", "population", "flaw size", "location", "implied toughness"]].copy()
-        shown["why"] = [" ".join(n) for n in flagged["notes"]]
+        shown["why"] = ["; ".join(n) for n in flagged["notes"]]
         out.append("<h3>Specimens to look at again</h3>" + _table(shown, index=False))
     out.append(figs.add("flaw_sizes", plots.flaw_size_plot(flaws).figure,
                         "Strength against measured flaw size on logarithmic axes; each line is σ = K_Ic/(Y·√a) for "
