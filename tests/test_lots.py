@@ -136,7 +136,7 @@ def test_fast_path_equals_the_one_concurrent_model(two_lots):
 def test_per_lot_estimates_equal_each_lots_own_fit(two_lots):
     c = L.compare_lots(two_lots, POPS)
     for l, name in enumerate(("before", "after")):
-        own = fm.fit(fm.read_specimens(two_lots[two_lots.lot == name], POPS))
+        own = fm.fit(fm.read_specimens(two_lots[two_lots.lot == name], POPS), intervals="profile")
         for p in c.populations:
             row, ref = p.by_lot[l], own.population(p.name)
             assert row["modulus"] == pytest.approx(ref.modulus, rel=1e-6)
