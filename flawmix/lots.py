@@ -1,8 +1,6 @@
 """Lots compared population by population: did a process change move one flaw population?
-
-The lot model is parameter tying over lot-specific copies of every population: copy (lot l,
-population j) is an ordinary concurrent population carried only by lot l's specimens, so the
-one likelihood (flawmix/likelihood.py) serves; each hypothesis ties copies across lots.
+The lot model ties lot-specific copies of every population (copy (l, j) is carried only by lot
+l's specimens), so the one likelihood (flawmix/likelihood.py) serves every hypothesis.
 """
 from __future__ import annotations
 
@@ -15,7 +13,7 @@ import numpy as np
 
 from . import likelihood as lik
 from .errors import FlawmixError
-from .evidence import TEST_LEVEL, evidence_words, rejects
+from .evidence import evidence_words, rejects
 
 LOT_COLUMN = "lot"
 DEFAULT_PROBABILITY = 0.01    # the failure probability at which strength changes are also stated

@@ -81,7 +81,6 @@ def brute_maximum(strength, failed, candidates, lot, n_lots, tie=None, starts=12
                     params[l, j, which] = value if shared else next(it)
         return params
 
-    n_free = 2 * k * n_lots - (0 if tie is None else (n_lots - 1) * (2 if tie[1] == "both" else 1))
     best = -np.inf
     for _ in range(starts):
         x0 = _order_start(k, n_lots, tie, centre, rng)
