@@ -592,6 +592,10 @@ def main(argv=None) -> int:
     except KeyboardInterrupt:
         print("error: interrupted", file=sys.stderr)
         return 130
+    except BrokenPipeError:   # the reader went away (`flawmix fit ... | head`): stop quietly
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stdout.fileno())   # so the interpreter's final flush cannot fail again
+        return 0
     except Exception as exc:  # a bug, not a user error: one line, details on request
         if os.environ.get("FLAWMIX_DEBUG"):
             raise
