@@ -18,6 +18,7 @@ _EXPORTS = {
     "FlawmixError": "errors", "FlawmixWarning": "errors",
     "FitResult": "result", "PopulationEstimate": "result",
     "Population": "specimens", "Specimens": "specimens", "read_specimens": "specimens",
+    "compare_lots": "lots", "read_lots": "lots", "LotComparison": "lots",
 }
 
 __all__ = sorted(_EXPORTS) + ["fit", "__version__"]

@@ -111,8 +111,10 @@ def model_choice_text(result, comparison=None) -> str:
     if tests:
         t = tests[0]
         judged = t.meaning.split(". ", 1)[-1].rstrip(".")
-        return (f"Model: '{result.model}' populations; test of one common modulus (one pooled population): "
-                f"p = {fmt.p_value(t.p_value)} ({t.method}). {judged}.")
+        if not judged.startswith("p ="):       # the meaning carries no verdict sentence
+            judged = f"p = {fmt.p_value(t.p_value)}"
+        return (f"Model: '{result.model}' populations; test of one common modulus (one pooled population, "
+                f"{t.method}): {judged}.")
     if len(result.populations) == 1:
         return "Model: one population (nothing to choose between)."
     return f"Model: '{result.model}' populations (no test of the model choice was run; see flawmix compare)."

@@ -160,10 +160,32 @@ def _bottom_line(args, study, specimens, result):
     return analyse(result, study, specimens, seed=seed)[0]
 
 
+def _reexamine_text(result) -> str:
+    """The labelled failures whose label is improbable at their strength, for the text output."""
+    from .origins import CHECK_THRESHOLD, specimens_to_reexamine
+
+    if len(result.populations) < 2:
+        return ""
+    flagged = specimens_to_reexamine(result)
+    if not len(flagged):
+        return ""
+    lines = [f"origin labels to re-examine (probability of the label at its strength, label withheld, below "
+             f"{CHECK_THRESHOLD:.0%}):"]
+    lines += [f"  {r['specimen']}: {r['strength']:.4g} {result.unit}, written '{r['origin']}', probability "
+              f"{r['label probability']:.2g}; most probable {r['most probable']}" for _, r in flagged.iterrows()]
+    return "\n".join(lines)
+
+
 def cmd_fit(args) -> int:
     study, specimens = _load(args)
     result = _fit_from_args(args, study, specimens)
-    return _emit(args, result, result, bottom=_bottom_line(args, study, specimens, result))
+    code = _emit(args, result, bottom=_bottom_line(args, study, specimens, result))
+    text = "" if args.json else _reexamine_text(result)
+    if text:
+        print()
+        print(text)
+    _print_warnings(result)
+    return code
 
 
 def cmd_compare(args) -> int:
@@ -294,11 +316,53 @@ def cmd_plan(args) -> int:
     return _emit(args, result)
 
 
+def cmd_flaws(args) -> int:
+    from .fracture import analyse_flaws
+
+    study, specimens = _load(args)
+    result = None
+    if not args.no_fit and len(specimens.populations) > 1:
+        from .fit import fit
+
+        result = fit(specimens, intervals="none")
+    analysis = analyse_flaws(specimens, study, stress=args.stress, tolerance=args.tolerance, size_unit=args.size_unit,
+                             fit=result)
+    if args.json:
+        print(json.dumps(analysis.to_dict(), indent=2, ensure_ascii=False))
+    else:
+        print(analysis)
+    return 0
+
+
 def demo_paths() -> tuple[Path, Path]:
     from importlib.resources import files
 
     base = files("flawmix") / "data"
     return Path(str(base / "seal_rings.csv")), Path(str(base / "seal_rings.toml"))
+
+
+def cmd_lots(args) -> int:
+    from .lots import compare_lots, read_lots_for_study
+    from .study import Study, parse_group_option, read_study
+
+    study = read_study(args.study) if args.study else Study()
+    populations = dict(parse_group_option(g) for g in args.group) if args.group else None
+    if args.plot and Path(args.plot).exists() and not args.force:   # refuse before the long part
+        raise FlawmixError(f"{args.plot}: already exists; choose another --plot file or add --force")
+    lots = read_lots_for_study(args.specimens, study, populations, order=args.lot or None, unit=args.unit,
+                               sheet=args.sheet if args.sheet is not None else study.sheet,
+                               unidentified_words=[*study.unidentified_words, *args.unidentified_word],
+                               origin_separators=args.origin_separator or study.origin_separators,
+                               uncertain_origins=args.uncertain_origins or study.uncertain_origins or "count")
+    seed = args.seed if args.seed is not None else (study.seed if study.seed is not None else 0)
+    result = compare_lots(lots, study=study, method=args.method, confidence=args.confidence,
+                          probability=args.probability, seed=seed, progress=not args.quiet, calibrate=args.calibrate)
+    if args.plot:
+        from . import plots
+        from .fonts import save
+
+        save(plots.lot_probability_plot(result), Path(args.plot), dpi=130, bbox_inches="tight")
+    return _emit(args, result, result)
 
 
 def cmd_report(args) -> int:
@@ -440,6 +504,44 @@ def build_parser() -> argparse.ArgumentParser:
     _add_quiet(p)
     p.set_defaults(func=cmd_plan)
 
+    p = _table_command(sub, "flaws", "measured flaw sizes against fracture toughness: implied K_Ic, critical sizes",
+                       table_help)
+    p.description = ("Needs a flaw_size column (µm unless its header says, e.g. 'flaw_size (mm)'; optional flaw_width "
+                     "= 2c and location) and the study file's toughness = K_Ic (MPa·√m); crack models per "
+                     "population from the study (default: volume penny, surface semi-elliptical, edge corner).")
+    p.add_argument("--stress", type=float, help="stress (in the strength unit) of the critical flaw sizes")
+    p.add_argument("--tolerance", type=float, help="relative agreement with K_Ic (default the study's, else 0.25)")
+    p.add_argument("--size-unit", help="unit of the flaw sizes shown (default as written in the table, else µm)")
+    p.add_argument("--no-fit", action="store_true",
+                   help="skip the fit whose origin-label checks are shown beside the fracture-mechanics ones")
+    p.add_argument("--json", action="store_true", help="print the analysis as JSON (schema in README)")
+    _add_quiet(p)
+    p.set_defaults(func=cmd_flaws)
+
+    p = sub.add_parser("lots", help="did a process change help? lots compared flaw population by flaw population")
+    p.add_argument("specimens", nargs="*", help="one table with a 'lot' column, or one table per lot (named after "
+                                                "its file); may come from the study file ('specimens' or [lots])")
+    _add_grouping(p)
+    p.add_argument("--lot", action="append", default=[], metavar="NAME",
+                   help="lot names in order, the first the baseline (repeat; default the study's lots, else the "
+                        "order they appear)")
+    p.add_argument("--method", default="mle", choices=["mle", "bayes"],
+                   help="mle (default; profile-likelihood intervals) or bayes (posterior estimates and the "
+                        "probability that each population got stronger); the tests are likelihood-ratio tests")
+    p.add_argument("--confidence", type=float, help="two-sided interval level (default 0.90)")
+    p.add_argument("--probability", type=float,
+                   help="failure probability at which stresses are also compared (default the study's [component] "
+                        "target_probability, else 0.01)")
+    p.add_argument("--calibrate", type=int, default=0, metavar="N",
+                   help="parametric-bootstrap replicates per test for calibrated p-values (default 0: χ²; the χ² "
+                        "p-values are a little liberal at 30 specimens per lot, see README)")
+    p.add_argument("--seed", type=int, help="seed of the sampler and the calibration (default: the study file's, else 0)")
+    p.add_argument("--plot", help="save the probability plots of the lots, population by population, to this PNG/SVG")
+    p.add_argument("--force", action="store_true", help="replace an existing --plot file")
+    p.add_argument("--json", action="store_true", help="print the comparison as JSON (schema in README)")
+    _add_quiet(p)
+    p.set_defaults(func=cmd_lots)
+
     p = _table_command(sub, "report", "run the whole analysis and write an HTML report folder", table_help)
     p.add_argument("--out", required=True, help="report folder to create (required; refuses to replace one without --force)")
     p.add_argument("--force", action="store_true", help="replace an existing report folder")
@@ -490,6 +592,10 @@ def main(argv=None) -> int:
     except KeyboardInterrupt:
         print("error: interrupted", file=sys.stderr)
         return 130
+    except BrokenPipeError:   # the reader went away (`flawmix fit ... | head`): stop quietly
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stdout.fileno())   # so the interpreter's final flush cannot fail again
+        return 0
     except Exception as exc:  # a bug, not a user error: one line, details on request
         if os.environ.get("FLAWMIX_DEBUG"):
             raise

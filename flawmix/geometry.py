@@ -18,7 +18,11 @@ from .scaling import GEOMETRIES, effective_size, read_elements
 
 KIND_MEASURE = {"volume": "effective_volume", "surface": "effective_area", "edge": "effective_length"}
 MEASURE_WORD = {"volume": "volume", "surface": "area", "edge": "edge length"}
-_GRID = np.linspace(np.log(0.5), np.log(300.0), 160)
+# ln m where effective sizes are tabulated: dense over the moduli of real materials, sparse
+# tails for the draws a posterior or bootstrap of a poorly determined population may visit
+_GRID = np.concatenate([np.linspace(np.log(0.05), np.log(0.5), 10, endpoint=False),
+                        np.linspace(np.log(0.5), np.log(300.0), 160),
+                        np.linspace(np.log(300.0), np.log(1000.0), 7)[1:]])
 
 
 @dataclass(frozen=True)
@@ -91,7 +95,7 @@ class Geometry:
             return np.full(m.shape, np.log(curve))
         u = np.log(m)
         if np.any(u < _GRID[0]) or np.any(u > _GRID[-1]):
-            raise FlawmixError(f"modulus outside 0.5 to 300 cannot be scaled (got {m.min():.3g} to {m.max():.3g})")
+            raise FlawmixError(f"a modulus of {m.min():.3g} to {m.max():.3g} lies outside 0.05 to 1000, where effective sizes are tabulated: the population is too poorly determined to scale; test more specimens or group its origins with another population")
         return curve(u)
 
     def size(self, kind: str, modulus) -> np.ndarray:

@@ -10,11 +10,13 @@ from __future__ import annotations
 import warnings as _warnings
 
 import numpy as np
-from scipy import stats as _sstats
+from scipy import special as _sspecial
 
 from . import likelihood as lik
 from .censored import censored_weibull_mle, weibull_regression
+from .endpoints import batched_profile_intervals
 from .errors import FlawmixError, FlawmixWarning
+from .labelled import labelled_optimum
 from .evidence import verdict_sentence
 from .calibration import CALIBRATED_METHOD
 from .optimize import newton_maximise, profile_interval, wald_interval
@@ -23,6 +25,7 @@ from .positions import adjusted_ranks, plotting_positions, position_rule, streng
 from .result import FitResult, HypothesisTest, PopulationEstimate
 from .specimens import Specimens, check_estimable
 
+NEWTON_STARTS = 3                # Newton runs from this many EM starts besides by-count
 PROFILE_MAX_SPECIMENS = 20_000   # above this, profile and Wald intervals agree to print precision
 
 
@@ -32,12 +35,13 @@ def _centred_data(specimens: Specimens) -> tuple[lik.Data, float]:
     return lik.Data(y - centre, specimens.failed, specimens.candidates), centre
 
 
-def _em_start(data: lik.Data, split: str, max_iter: int | None = None) -> np.ndarray:
-    """A starting point from a few EM steps; only uncertain failures are re-split."""
+def _em_start(data: lik.Data, split, max_iter: int | None = None) -> np.ndarray:
+    """A starting point from a few EM steps; only uncertain failures are re-split.
+    ``split``: a rule of :func:`likelihood.starting_responsibilities` or an (N, k) array."""
     k = data.k
     F = data.failed
     n_cand = data.candidates.sum(axis=1)
-    resp = lik.starting_responsibilities(data, split)
+    resp = lik.starting_responsibilities(data, split) if isinstance(split, str) else np.array(split, dtype=float)
     if max_iter is None:  # EM only has to get close; Newton finishes, so keep big data cheap
         max_iter = 3 if data.y.size <= 10_000 else 2
     uncertain = np.flatnonzero(F & (n_cand > 1))
@@ -56,6 +60,46 @@ def _em_start(data: lik.Data, split: str, max_iter: int | None = None) -> np.nda
     return np.concatenate([u, v])
 
 
+def _population_orders(k: int) -> list[tuple[int, ...]]:
+    """Which population takes the weakest block of uncertain failures, which the next, ...:
+    every order for k <= 3, the k rotations and their reverses for larger k."""
+    if k <= 3:
+        from itertools import permutations
+
+        return list(permutations(range(k)))
+    turns = [tuple(np.roll(np.arange(k), r)) for r in range(k)]
+    return turns + [t[::-1] for t in turns]
+
+
+def starting_splits(data: lik.Data) -> list:
+    """Starting splits of the uncertain failures for the EM start.
+
+    By certain counts and equally (both symmetric in the populations when every origin is
+    unidentified: Newton then stays on the symmetric ridge where all populations are equal, a
+    saddle), plus asymmetric splits by strength quantiles: the uncertain failures, in
+    strength order, are cut into k blocks and block b goes to population order[b] (when it is
+    a candidate; otherwise the failure keeps its by-count split)."""
+    splits: list = ["by-count"]
+    if data.certain:
+        return splits
+    splits.append("equal")
+    if data.y.size > 10_000:
+        return splits[:1]   # a sharply peaked likelihood: one start (see _maximise)
+    k = data.k
+    base = lik.starting_responsibilities(data, "by-count")
+    uncertain = np.flatnonzero(data.failed & (data.candidates.sum(axis=1) > 1))
+    ranked = uncertain[np.argsort(data.y[uncertain], kind="stable")]
+    blocks = np.array_split(ranked, k)
+    for order in _population_orders(k):
+        resp = base.copy()
+        for block, j in zip(blocks, order):
+            allowed = block[data.candidates[block, j]]
+            resp[allowed] = 0.0
+            resp[allowed, j] = 1.0
+        splits.append(resp)
+    return splits
+
+
 def _bounds(k: int) -> tuple[np.ndarray, np.ndarray]:
     lower = np.concatenate([np.full(k, lik.LOG_MODULUS_MIN), np.full(k, -np.inf)])
     upper = np.concatenate([np.full(k, lik.LOG_MODULUS_MAX), np.full(k, np.inf)])
@@ -66,17 +110,26 @@ def _maximise(data: lik.Data, tie=None, start=None):
     k = data.k
     lower, upper = _bounds(k)
     deriv = lambda t: lik.concurrent_derivatives(data, t)
-    # Unidentified origins can make the likelihood multi-modal: try two EM splits.
-    # (One start for big data: its likelihood is too sharply peaked for a second mode to matter.)
-    two = not data.certain and data.y.size <= 10_000
-    starts = [start] if start is not None else (["by-count", "equal"] if two else ["by-count"])
+    score_tol = 1e-10 * max(1.0, data.y.size / 1000.0)
+    if data.certain:   # labelled: the maximum in closed form, unique (labelled.py)
+        closed = labelled_optimum(data, tie, score_tol)
+        if closed is not None:
+            return closed, deriv, lower, upper
+    # Unidentified origins can make the likelihood multi-modal: several EM starts; Newton
+    # from the by-count start and the NEWTON_STARTS best of the others, the best maximum kept.
+    if start is not None:
+        points = [np.array(start, dtype=float)]
+    else:
+        points = [_em_start(data, split) for split in starting_splits(data)]
+        if len(points) > NEWTON_STARTS + 1:
+            values = [lik.concurrent_loglik(data, p[:k], p[k:]) for p in points[1:]]
+            ranked = np.argsort(values)[::-1][:NEWTON_STARTS]
+            points = [points[0]] + [points[1 + i] for i in ranked]
     best = None
-    for split in starts:
-        theta0 = _em_start(data, split) if isinstance(split, str) else np.array(split, dtype=float)
+    for theta0 in points:
         if tie is not None:  # common modulus: start all moduli at their mean
             theta0[:k] = np.mean(theta0[:k])
-        opt = newton_maximise(deriv, theta0, tie=tie, lower=lower, upper=upper,
-                              score_tol=1e-10 * max(1.0, data.y.size / 1000.0))
+        opt = newton_maximise(deriv, theta0, tie=tie, lower=lower, upper=upper, score_tol=score_tol)
         if best is None or opt.loglik > best.loglik + 1e-9:
             best = opt
     return best, deriv, lower, upper
@@ -293,8 +346,15 @@ def fit_mle(
     mod_int, str_int, frac_int = [], [], [None] * k
 
     problems: list[str] = []
+    batched = {}
+    if method == "profile" and tie is None and spec.name == "concurrent" and spec.size_offsets is None:
+        batched = batched_profile_intervals(   # all end points in one solve (endpoints.py)
+            data, opt, confidence, lower, upper, problems=problems,
+            limits=lambda i: (lik.LOG_MODULUS_MIN, lik.LOG_MODULUS_MAX) if i < k else (-np.inf, np.inf))
 
     def interval(index, limits=(-np.inf, np.inf)):
+        if index in batched:
+            return batched[index]
         if method in ("profile", "calibrated"):
             drops = None if calibration is None else tuple(calibration.drops[index])
             return profile_interval(deriv, opt, index, confidence, tie=tie, lower=lower, upper=upper, limits=limits,
@@ -349,7 +409,7 @@ def fit_mle(
     if tests and k >= 2 and not common_modulus and model == "concurrent":
         common, *_ = _maximise(data, common_modulus_tie(k), start=opt.theta)
         stat = max(0.0, 2.0 * (opt.loglik - common.loglik))
-        p = float(_sstats.chi2.sf(stat, k - 1))
+        p = float(_sspecial.chdtrc(k - 1, stat))   # = scipy.stats.chi2.sf, without its overhead
         result_tests.append(HypothesisTest(
             name="common-modulus",
             statistic=stat, df=k - 1, p_value=p, method="likelihood ratio, χ²",

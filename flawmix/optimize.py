@@ -11,6 +11,7 @@ from typing import Callable
 
 import numpy as np
 from scipy import optimize as _sopt
+from scipy import special as _sspecial
 from scipy import stats as _sstats
 
 Derivatives = Callable[[np.ndarray], tuple[float, np.ndarray, np.ndarray]]
@@ -98,7 +99,8 @@ def newton_maximise(
 
 def chi2_cutoff(confidence: float, df: int = 1) -> float:
     """Half the χ² quantile: the drop in log-likelihood bounding a profile interval."""
-    return 0.5 * float(_sstats.chi2.ppf(confidence, df))
+    # scipy.stats.chi2.ppf is 2·gammaincinv(df/2, p); called directly it costs 0.4 µs, not 100
+    return float(_sspecial.gammaincinv(0.5 * df, confidence))
 
 
 def profile_interval(

@@ -121,14 +121,15 @@ def _crossover_marks(ax, changes, unit, lo, hi):
 
 
 def probability_plot(result, ax=None, view: str = "populations", band: bool = True, crossover: bool = True,
-                     title: str | None = None):
+                     title: str | None = None, mark=None):
     # (the legend sits below the axes, so the default figure is taller than wide-screen)
     """Weibull probability plot of every specimen, marked by origin population.
 
     view ``populations``: each population's failures at its own adjusted ranks, with that
     population's own fitted line and own band; ``all``: all failures ranked together, with
     the model's combined curve and its band and the stresses where the dominating
-    population changes."""
+    population changes. ``mark``: specimen ids to ring (e.g. the origins to re-examine from
+    ``result.origin_probabilities()``)."""
     from .bottomline import dominance_changes
 
     if view not in ("populations", "all"):
@@ -179,6 +180,11 @@ def probability_plot(result, ax=None, view: str = "populations", band: bool = Tr
     if crossover and view == "all" and result.model.startswith("concurrent") and len(names) > 1:
         _crossover_marks(ax, dominance_changes(result.moduli, result.characteristic_strengths, names, lo, hi),
                          result.unit, lo, hi)
+
+    ringed = pos[pos["specimen"].isin(list(mark) if mark is not None else []) & pos["probability"].notna()]
+    if len(ringed):
+        ax.scatter(ringed["strength"], _weibit(ringed["probability"]), s=170, facecolors="none", zorder=5,
+                   edgecolors="#b0202a", linewidths=1.6, label=f"origin label to re-examine, {len(ringed)}")
 
     surv = pos[pos["group"] == "survived"]
     if len(surv):
@@ -404,3 +410,100 @@ def plan_plot(plan, ax=None):
         ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.15), ncol=2, fontsize=8, frameon=False)
     ax.set_title("How many specimens? Precision and power against campaign size", fontsize=10)
     return ax
+
+
+def flaw_size_plot(analysis, ax=None, title: str | None = None):
+    """Strength against measured flaw size, both logarithmic, by population, with each
+    population's σ ∝ a^(−1/2) line at K_Ic (solid) and at the ends of the agreement band
+    (dotted); specimens to look at again are ringed. ``analysis``: a
+    :class:`flawmix.fracture.FlawAnalysis`."""
+    ax = _ax(ax, (7.5, 6.4))
+    rows = analysis.specimens
+    measured = rows[np.isfinite(rows["flaw size"].astype(float)) & rows["population"].notna()]
+    sizes = measured["flaw size"].to_numpy(dtype=float)
+    strengths = measured["strength"].to_numpy(dtype=float)
+    if not sizes.size:
+        raise FlawmixError("no specimen has both a flaw size and one origin population to plot")
+    lo, hi = sizes.min() / 1.6, sizes.max() * 1.6
+    grid = np.geomspace(lo, hi, 200)
+    band = analysis.toughness.band
+    names = list(analysis.populations.index)
+    for j, name in enumerate(names):
+        colour, marker, filled = _style(j)
+        mine = measured[measured["population"] == name]
+        ax.scatter(mine["flaw size"], mine["strength"], marker=marker, s=38, zorder=4,
+                   facecolors=colour if filled else "white", edgecolors=colour, linewidths=1.4,
+                   label=f"{name}, {len(mine)} measured ({analysis.models[name].describe})")
+        ax.plot(grid, analysis.critical_stress(name, grid), color=colour, lw=1.5, zorder=3,
+                label=f"{name}: K_Ic = {analysis.toughness.value:.3g} MPa·√m")
+        for edge in band:
+            ax.plot(grid, analysis.critical_stress(name, grid, edge), color=colour, lw=1.0, ls=(0, (1.5, 2.5)),
+                    zorder=3, label=f"{name}: agreement band, {band[0]:.3g}–{band[1]:.3g} MPa·√m"
+                    if edge == band[0] else "_nolegend_")
+    flagged = analysis.flagged
+    flagged = flagged[np.isfinite(flagged["flaw size"].astype(float))]
+    if len(flagged):
+        ax.scatter(flagged["flaw size"], flagged["strength"], s=170, facecolors="none", edgecolors="#b0202a",
+                   linewidths=1.6, zorder=5, label=f"to look at again (toughness or location), {len(flagged)}")
+    ax.set_xscale("log")
+    ax.set_yscale("log")
+    ax.set_xlim(lo, hi)
+    ax.set_ylim(strengths.min() / 1.35, strengths.max() * 1.3)
+    _log_ticks(ax.xaxis, lo, hi)
+    _log_ticks(ax.yaxis, *ax.get_ylim())
+    ax.set_xlabel(f"flaw size a ({analysis.size_unit}), logarithmic")
+    ax.set_ylabel(f"strength ({analysis.unit}), logarithmic")
+    ax.grid(True, which="major", color="#dddddd", lw=0.6)
+    ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.13), ncol=2, fontsize=7.5, frameon=False)
+    ax.set_title(title or "Strength against flaw size: K = Y·σ·√a", fontsize=10)
+    return ax
+
+def lot_probability_plot(comparison, title: str | None = None):
+    """Probability plots of the lots, one panel per population, all on the same axes: each
+    lot's failures of that population at adjusted ranks within the lot, with the lot's own
+    fitted line (solid: the baseline lot). Returns the Figure."""
+    plt = _plt()
+    pos = comparison.plotting_positions()
+    lines = comparison.lines()
+    names = [p.name for p in comparison.populations]
+    k = len(names)
+    # the same limits on every panel (set one by one: shared log axes would share one locator)
+    fig, axes = plt.subplots(1, k, figsize=(3.6 * k + 0.8, 5.4), constrained_layout=True, squeeze=False)
+    s = comparison.data.specimens.strength
+    lo, hi = s.min() / 1.25, s.max() * 1.12
+    grid = np.geomspace(lo, hi, 300)
+    weib = _weibit(pos["probability"]) if len(pos) else np.array([-3.0, 1.0])
+    ymin, ymax = float(np.min(weib)) - 0.8, max(float(np.max(weib)) + 0.9, 1.4)
+    for j, (ax, name) in enumerate(zip(axes[0], names)):
+        for l, lot in enumerate(comparison.lots):
+            colour, marker, filled = _style(l)
+            mine = pos[(pos["population"] == name) & (pos["lot"] == lot)]
+            ax.scatter(mine["strength"], _weibit(mine["probability"]), marker=marker, s=34, zorder=4,
+                       facecolors=colour if filled else "white", edgecolors=colour, linewidths=1.3,
+                       label=f"{lot}: {len(mine)} failures")
+            row = lines[(lines["population"] == name) & (lines["lot"] == lot)].iloc[0]
+            cdf = -np.expm1(-(grid / row["characteristic_strength"]) ** row["modulus"])
+            ax.plot(grid, _weibit(cdf), color=colour, lw=1.4, ls="-" if l == 0 else (0, (5, 3)), zorder=3,
+                    label=f"{lot}: m {row['modulus']:.3g}, σθ {row['characteristic_strength']:.4g}")
+        ax.set_xlim(lo, hi)
+        _stress_axis(ax, comparison.unit)
+        # only ticks inside the range: spare tick labels of one panel must not sit over the next
+        ax.set_xticks([t for t in ax.xaxis.get_major_locator().tick_values(lo, hi) if lo <= t <= hi])
+        ax.set_xlim(lo, hi)
+        ax.set_ylim(ymin, ymax)
+        ax.grid(True, which="major", color="#dddddd", lw=0.6)
+        p = comparison.populations[j]
+        ax.set_title(f"{name}: p = {p.same_population['p_value']:.2g}", fontsize=9.5)
+        ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.16), ncol=1, fontsize=7.5, frameon=False)
+        if j:
+            ax.set_xlabel("strength, logarithmic")
+            ax.tick_params(labelleft=False)
+    axes[0][0].set_ylabel("ln ln 1/(1 − P)")
+    right = axes[0][-1].twinx()
+    right.set_ylim(ymin, ymax)
+    ticks = [t for t in PERCENT_TICKS if ymin <= _weibit(t / 100) <= ymax]
+    right.set_yticks([_weibit(t / 100) for t in ticks])
+    right.set_yticklabels([f"{t:g}" for t in ticks])
+    right.set_ylabel("failure probability (%)")
+    fig.suptitle(title or "Lots compared per population (adjusted ranks within each lot, (i − 0.5)/N)", fontsize=10)
+    return fig

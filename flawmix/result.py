@@ -343,6 +343,14 @@ class FitResult:
         frame.index.names = [f"stress ({self.unit})", "population"]
         return frame
 
+    def origin_probabilities(self, threshold: float = 0.05, method: str = "auto") -> pd.DataFrame:
+        """Probability of each population as the origin of every unidentified or ambiguous
+        failure, and of every written label with that label withheld (``check``: below
+        ``threshold``, re-examine that fracture surface). See :mod:`flawmix.origins`."""
+        from .origins import origin_probabilities
+
+        return origin_probabilities(self, threshold, method)
+
     @property
     def posterior(self):
         """The posterior as arviz InferenceData (arviz 0.x) or DataTree (1.x); Bayes fits only."""
@@ -433,6 +441,7 @@ class FitResult:
             **({"priors": list(self.priors)} if self.priors else {}),
             **{k: v for k, v in self.extras.items() if isinstance(v, (dict, list, str, int, float, type(None)))},
             **({"accounting": _accounting(self.specimens)} if self.specimens is not None else {}),
+            **_origin_keys(self),
         }
 
     def __str__(self) -> str:
@@ -464,8 +473,9 @@ def format_result(r: FitResult, warnings: bool = True) -> str:
         f"ambiguous {r.n_ambiguous}), survived {r.n_survived}; stress unit {r.unit}",
         "",
     ]
+    unbiased = any(p.modulus_unbiased is not None for p in r.populations)   # complete single samples only
     header = (f"{'population':<18}{'kind':<10}{'failures':>9}{'expected':>9}  {'modulus':>7}  {'(' + level + ')':<20}"
-              f"{'σθ':>8}  {'(' + level + ')':<18}{'m unbiased':>10}")
+              f"{'σθ':>8}  {'(' + level + ')':<18}" + (f"{'m unbiased':>10}" if unbiased else "")).rstrip()
     lines.append(header)
     lines.append("-" * len(header))
     for p in r.populations:
@@ -473,8 +483,10 @@ def format_result(r: FitResult, warnings: bool = True) -> str:
         si = fmt.interval(*p.strength_interval)
         lines.append(
             f"{p.name[:17]:<18}{p.kind:<10}{p.n_failures:>9}{p.expected_failures:>9.1f}  {fmt.modulus(p.modulus):>7}  "
-            f"{mi:<20}{fmt.stress(p.characteristic_strength):>8}  {si:<18}{fmt.modulus(p.modulus_unbiased):>10}"
+            f"{mi:<20}{fmt.stress(p.characteristic_strength):>8}  {si:<18}"
+            + (f"{fmt.modulus(p.modulus_unbiased):>10}" if unbiased else "")
         )
+        lines[-1] = lines[-1].rstrip()
     if not r.model.startswith("concurrent"):
         lines.append("")
         for p in r.populations:
@@ -517,6 +529,15 @@ def format_result(r: FitResult, warnings: bool = True) -> str:
     for w in (r.warnings if warnings else ()):
         lines.append(f"warning: {w}")
     return "\n".join(lines)
+
+
+def _origin_keys(result) -> dict:
+    """``origin_probabilities`` and ``origin_checks`` (flawmix.origins) when the result has specimens."""
+    if result.specimens is None:
+        return {}
+    from .origins import origin_export
+
+    return origin_export(result)
 
 
 def _accounting(specimens) -> dict:

@@ -28,7 +28,7 @@ from .units import stress_unit
 LOAD_KEYS = ("stress", "target_probability")   # [component] keys that describe the analysed load
 KNOWN_KEYS = {"unit", "confidence", "specimens", "populations", "geometries", "component",
               "seed", "title", "length_unit", "geometry", "sheet", "unidentified_words", "origin_separators",
-              "uncertain_origins"}
+              "uncertain_origins", "toughness", "lots"}
 
 
 @dataclass(frozen=True)
@@ -45,12 +45,15 @@ class Study:
     geometries: dict[str, dict[str, Any]] = field(default_factory=dict)
     component: dict[str, Any] | None = None
     priors: dict[str, dict[str, Any]] = field(default_factory=dict)
+    toughness: Any = None                # K_Ic in MPa·√m, or a table (flawmix.fracture reads it)
+    cracks: dict[str, Any] = field(default_factory=dict)   # population -> crack model settings
     path: Path | None = None
     geometry: str | None = None          # geometry of every specimen when the table has no column
     sheet: str | int | None = None       # the workbook sheet with the specimens
     unidentified_words: tuple[str, ...] = ()
     origin_separators: tuple[str, ...] | None = None
     uncertain_origins: str | None = None
+    lots: dict[str, dict[str, Any]] | None = None   # lot name -> {"specimens": Path, "geometry": name}
 
     def geometry_objects(self) -> dict:
         """The [geometries.NAME] tables as :class:`flawmix.geometry.Geometry` objects (built
@@ -149,6 +152,7 @@ def read_study(path) -> Study:
                            f"known keys are {', '.join(sorted(KNOWN_KEYS))}")
     pops = None
     priors: dict[str, dict[str, Any]] = {}
+    cracks: dict[str, Any] = {}
     if "populations" in raw:
         table = raw["populations"]
         if not isinstance(table, dict) or not table:
@@ -160,6 +164,8 @@ def read_study(path) -> Study:
         for name, spec in table.items():
             if isinstance(spec, dict) and "prior" in spec:
                 priors[name] = dict(spec["prior"])
+            if isinstance(spec, dict) and ("crack" in spec or "shape_factor" in spec):
+                cracks[name] = {key: spec[key] for key in ("crack", "shape_factor") if key in spec}
     unit = None
     if "unit" in raw:
         try:
@@ -176,10 +182,42 @@ def read_study(path) -> Study:
     if not isinstance(geometries, dict):
         raise FlawmixError(f"{path}: 'geometries' must be tables [geometries.NAME]")
     component = raw.get("component")
-    return Study(**_table_keys(path, raw), populations=pops, unit=unit, confidence=confidence, specimens=specimens,
-                 title=raw.get("title"), seed=raw.get("seed"), length_unit=raw.get("length_unit"),
-                 geometries=geometries, component=component, priors=priors, path=path,
-                 geometry=raw.get("geometry"))
+    study = Study(**_table_keys(path, raw), populations=pops, unit=unit, confidence=confidence, specimens=specimens,
+                  title=raw.get("title"), seed=raw.get("seed"), length_unit=raw.get("length_unit"),
+                  geometries=geometries, component=component, priors=priors, path=path,
+                  toughness=raw.get("toughness"), cracks=cracks,
+                  geometry=raw.get("geometry"), lots=_lots(path, raw.get("lots")))
+    # a mistake in a geometry or the component must stop the run now, not after the fits
+    study.geometry_objects()
+    study.component_object()
+    study.component_load()
+    return study
+
+
+def _lots(path: Path, raw) -> dict[str, dict[str, Any]] | None:
+    """``lots = ["before", "after"]`` (names and order of a lot column), or ``[lots]`` with
+    ``NAME = "table.csv"`` or ``[lots.NAME]`` tables (``specimens``, ``geometry``)."""
+    if raw is None:
+        return None
+    if isinstance(raw, list) and raw and all(isinstance(x, str) for x in raw):
+        return {x: {} for x in raw}
+    if not isinstance(raw, dict) or not raw:
+        raise FlawmixError(f"{path}: 'lots' must list lot names (lots = [\"before\", \"after\"]) or be a [lots] "
+                           "table of NAME = \"table.csv\"")
+    out = {}
+    for name, spec in raw.items():
+        spec = {"specimens": spec} if isinstance(spec, str) else spec
+        if not isinstance(spec, dict):
+            raise FlawmixError(f"{path}: [lots] {name} = {spec!r}: write the lot's table as text "
+                               f"({name} = \"table.csv\") or a [lots.{name}] table")
+        bad = sorted(set(spec) - {"specimens", "geometry"})
+        if bad:
+            raise FlawmixError(f"{path}: [lots.{name}]: unknown key '{bad[0]}'; use 'specimens' (its table) and "
+                               "'geometry' (its geometry name)")
+        table = spec.get("specimens")
+        out[str(name)] = {"specimens": (path.parent / table).resolve() if table else None,
+                          "geometry": spec.get("geometry")}
+    return out
 
 
 def _table_keys(path: Path, raw: dict) -> dict:

@@ -171,3 +171,48 @@ def test_log_ticks_are_readable_over_any_range():
         labels = [t for t in ax.xaxis.get_ticklabels() if t.get_text() and lo <= t.get_position()[0] <= hi]
         assert 2 <= len(labels) <= 12, (lo, hi, [t.get_text() for t in labels])
         _check(fig, f"log_ticks_{lo:g}_{hi:g}")
+
+
+def test_flaw_size_plot_is_readable_and_rings_the_flagged():
+    from flawmix.fracture import analyse_flaws
+
+    folder = Path(__file__).resolve().parents[1] / "examples" / "flaw_sizes"
+    study = read_study(folder / "study.toml")
+    analysis = analyse_flaws(fm.read_specimens(study.specimens, study.populations, study.unit), study)
+    ax = plots.flaw_size_plot(analysis)
+    ringed = [c for c in ax.collections if c.get_label().startswith("to look at again")]
+    flagged = analysis.flagged
+    assert len(ringed) == 1 and len(ringed[0].get_offsets()) == len(flagged) > 0
+    lines = [ln for ln in ax.lines if "K_Ic =" in ln.get_label()]
+    assert len(lines) == len(analysis.populations)
+    # the pores' line (penny cracks, Y = 2/√π, Sneddon 1946): σ·(2/√π)·√a = K_Ic along it, µm → m
+    pores = [ln for ln in lines if ln.get_label().startswith("pores")][0]
+    a, s = (np.asarray(v, dtype=float) for v in pores.get_data())
+    np.testing.assert_allclose(s * 2 / np.sqrt(np.pi) * np.sqrt(a * 1e-6), 5.5, rtol=1e-12)
+    _check(ax.figure, "flaw_size_plot")
+
+
+def test_probability_plot_rings_the_origins_to_reexamine(demo):
+    _, result, *_ = demo
+    ids = list(result.specimens.ids[:2])
+    ax = plots.probability_plot(result, mark=ids)
+    ringed = [c for c in ax.collections if c.get_label().startswith("origin label to re-examine")]
+    assert len(ringed) == 1 and len(ringed[0].get_offsets()) == 2
+    _check(ax.figure, "demo_probability_plot_marked")
+
+def test_lot_plots_are_readable_and_share_axes():
+    """The invented two-lot example (examples/lots/): one panel per population, every panel
+    on the same stress and probability axes, each lot's points and fitted line in each."""
+    from flawmix.lots import compare_lots
+
+    study = read_study(Path(__file__).resolve().parents[1] / "examples" / "lots" / "wheel_change.toml")
+    comparison = compare_lots(None, study=study)
+    fig = plots.lot_probability_plot(comparison)
+    panels = [ax for ax in fig.axes if ax.get_title()]
+    assert len(panels) == len(comparison.populations)
+    assert len({ax.get_xlim() for ax in panels}) == 1 and len({ax.get_ylim() for ax in panels}) == 1
+    for ax in panels:
+        labels = [c.get_label() for c in ax.collections]
+        assert [lab.split(":")[0] for lab in labels] == list(comparison.lots)
+        assert len([ln for ln in ax.lines if not ln.get_label().startswith("_")]) == len(comparison.lots)
+    _check(fig, "lots_probability_plots")

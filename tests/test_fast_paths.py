@@ -1,0 +1,190 @@
+"""Fast paths of the maximum-likelihood fit are special cases of the one likelihood: the labelled
+closed forms (labelled.py) and the batched profile end points (endpoints.py) give what the
+general Newton / bracketing path and an independent scipy.stats computation give."""
+import numpy as np
+import pandas as pd
+import pytest
+from scipy import optimize, stats
+
+import flawmix as fm
+from flawmix import likelihood as lik
+from flawmix import mle
+from flawmix.endpoints import batched_profile_intervals, profile_end_points
+from flawmix.labelled import labelled_optimum
+from flawmix.optimize import chi2_cutoff, newton_maximise, profile_interval
+
+from conftest import simulate_campaign
+
+CUT_90 = 0.5 * stats.chi2.ppf(0.90, 1)
+
+
+def _fit_parts(frame):
+    sp = fm.read_specimens(frame)
+    data, centre = mle._centred_data(sp)
+    opt, deriv, lower, upper = mle._maximise(data)
+    return sp, data, centre, opt, deriv, lower, upper
+
+
+def _scipy_loglik(strength, own, modulus, scale):
+    """One population's censored log-likelihood written with scipy.stats: its own failures
+    by the density, every other specimen by the survival function."""
+    return (stats.weibull_min.logpdf(strength[own], modulus, scale=scale).sum()
+            + stats.weibull_min.logsf(strength[~own], modulus, scale=scale).sum())
+
+
+def _closed_scale(strength, own, modulus):
+    # σθ(m) = (Σ_all σ^m / r)^(1/m): the censored MLE of σθ at a given m (DOMAIN.md section 3)
+    top = strength.max()   # scaled by the largest strength, so σ^m cannot overflow
+    return top * (np.sum((strength / top) ** modulus) / own.sum()) ** (1.0 / modulus)
+
+
+def _modulus_score(strength, own, modulus, scale):
+    # ∂ ln L / ∂m = r/m + Σ_own ln(σ/σθ) − Σ_all (σ/σθ)^m ln(σ/σθ)  (differentiated by hand)
+    x = np.log(strength / scale)
+    return own.sum() / modulus + x[own].sum() - np.sum(np.exp(modulus * x) * x)
+
+
+def _independent_ends(strength, own, modulus_hat, scale_hat):
+    """Profile end points of one labelled population by scipy brentq (xtol 1e-14) on the
+    scipy.stats log-likelihood, the nuisance parameter maximised in closed form (σθ) or by
+    its score's root (m). Returns ((m_lo, m_hi), (σθ_lo, σθ_hi))."""
+    top = _scipy_loglik(strength, own, modulus_hat, scale_hat)
+
+    def by_modulus(m):
+        return _scipy_loglik(strength, own, m, _closed_scale(strength, own, m)) - (top - CUT_90)
+
+    def by_scale(s):
+        m = optimize.brentq(lambda m: _modulus_score(strength, own, m, s), 0.05, 500.0, xtol=1e-14, rtol=1e-15)
+        return _scipy_loglik(strength, own, m, s) - (top - CUT_90)
+
+    m_ends = (optimize.brentq(by_modulus, modulus_hat / 5, modulus_hat, xtol=1e-14, rtol=1e-15),
+              optimize.brentq(by_modulus, modulus_hat, modulus_hat * 5, xtol=1e-14, rtol=1e-15))
+    s_ends = (optimize.brentq(by_scale, scale_hat * 0.6, scale_hat, xtol=1e-13, rtol=1e-15),
+              optimize.brentq(by_scale, scale_hat, scale_hat * 1.6, xtol=1e-13, rtol=1e-15))
+    return m_ends, s_ends
+
+
+@pytest.mark.parametrize("seed", [0, 1, 2])
+def test_labelled_end_points_equal_an_independent_scipy_profile(seed):
+    frame = simulate_campaign(np.random.default_rng(seed), n=30, survive_at=430.0)
+    sp, data, centre, opt, _, lower, upper = _fit_parts(frame)
+    ends, solved = profile_end_points(data, opt.theta, opt.hessian, np.arange(4), (CUT_90, CUT_90), lower, upper)
+    assert solved.all()
+    for j in range(2):
+        own = sp.failed & sp.candidates[:, j]
+        m_ends, s_ends = _independent_ends(sp.strength, own, np.exp(opt.theta[j]), np.exp(opt.theta[2 + j] + centre))
+        np.testing.assert_allclose(ends[j], np.log(m_ends), rtol=0, atol=1e-10)
+        np.testing.assert_allclose(ends[2 + j] + centre, np.log(s_ends), rtol=0, atol=1e-10)
+
+
+@pytest.mark.parametrize("seed", [0, 1, 2, 3])
+def test_batched_end_points_with_unidentified_origins_equal_the_bracketing_search(seed):
+    frame = simulate_campaign(np.random.default_rng(seed), n=40, unknown=0.25)
+    _, data, _, opt, deriv, lower, upper = _fit_parts(frame)
+    assert not data.certain
+    batched = batched_profile_intervals(data, opt, 0.90, lower, upper)
+    assert set(batched) == {0, 1, 2, 3}
+    for i in range(4):
+        limits = (lik.LOG_MODULUS_MIN, lik.LOG_MODULUS_MAX) if i < 2 else (-np.inf, np.inf)
+        general = profile_interval(deriv, opt, i, 0.90, lower=lower, upper=upper, limits=limits)
+        # the bracketing search stops at brentq's xtol = 1e-9; the batched Newton is far tighter
+        np.testing.assert_allclose(batched[i], general, rtol=0, atol=2e-9)
+
+
+def test_batched_end_points_satisfy_their_equations():
+    # at each end point: ll = ll_max − χ²₁(0.90)/2 and the score of every other parameter is 0
+    frame = simulate_campaign(np.random.default_rng(7), n=40, unknown=0.25, survive_at=440.0)
+    _, data, _, opt, _, lower, upper = _fit_parts(frame)
+    ends, solved = profile_end_points(data, opt.theta, opt.hessian, np.arange(4), (CUT_90, CUT_90), lower, upper)
+    assert solved.all()
+    for i in range(4):
+        for end in ends[i]:
+            offset = np.zeros(4)
+            offset[i] = end
+            tie = np.delete(np.eye(4), i, axis=1)
+            start = opt.theta.copy()
+            start[i] = end
+            inner = newton_maximise(lambda t: lik.concurrent_derivatives(data, t), start, tie=tie, offset=offset,
+                                    score_tol=1e-11)
+            assert inner.loglik == pytest.approx(opt.loglik - CUT_90, abs=1e-9)
+
+
+def test_unbounded_end_is_left_to_the_bracketing_search():
+    # the two strongest specimens are the only failures of 'b': its modulus estimate sits at
+    # the search bound and its upper end is not bounded by the data
+    frame = simulate_campaign(np.random.default_rng(3), n=20)
+    frame.loc[:, "origin"] = "a"
+    frame.loc[np.argsort(frame.strength.to_numpy())[-2:], "origin"] = "b"
+    sp, data, _, opt, _, lower, upper = _fit_parts(frame)
+    _, solved = profile_end_points(data, opt.theta, opt.hessian, np.arange(4), (CUT_90, CUT_90), lower, upper)
+    assert not solved[1, 1]                 # not settled by Newton ...
+    batched = batched_profile_intervals(data, opt, 0.90, lower, upper,
+                                        limits=lambda i: (lik.LOG_MODULUS_MIN, lik.LOG_MODULUS_MAX))
+    assert batched[1][1] == np.inf          # ... so searched on b's own likelihood, up to the bound
+    general = profile_interval(lambda t: lik.concurrent_derivatives(data, t), opt, 1, 0.90, lower=lower,
+                               upper=upper, limits=(lik.LOG_MODULUS_MIN, lik.LOG_MODULUS_MAX))
+    np.testing.assert_allclose(batched[1], general, rtol=0, atol=2e-9)   # the whole likelihood's search
+    result = fm.fit(sp)
+    assert any("search bound" in line for line in result.warnings)
+    assert result.populations[1].modulus_interval[1] == np.inf    # ... and unbounded in the fit
+
+
+@pytest.mark.parametrize("survive_at", [None, 425.0])
+def test_labelled_closed_form_maximum_equals_newton_on_the_joint_likelihood(survive_at):
+    frame = simulate_campaign(np.random.default_rng(11), n=50, survive_at=survive_at,
+                              pops=(("a", 6.0, 400.0), ("b", 15.0, 420.0), ("c", 9.0, 450.0)))
+    sp = fm.read_specimens(frame)
+    data, _ = mle._centred_data(sp)
+    deriv = lambda t: lik.concurrent_derivatives(data, t)
+    lower, upper = mle._bounds(3)
+    for tie in (None, mle.common_modulus_tie(3)):
+        closed = labelled_optimum(data, tie, 1e-10)
+        start = mle._em_start(data, "equal")
+        start[:3] = start[:3].mean()   # a start away from the answer
+        newton = newton_maximise(deriv, start, tie=tie, lower=lower, upper=upper, score_tol=1e-12)
+        np.testing.assert_allclose(closed.theta, newton.theta, rtol=0, atol=1e-10)
+        assert closed.loglik == pytest.approx(newton.loglik, abs=1e-9)
+
+
+def test_labelled_common_modulus_is_the_pooled_censored_fit_of_scipy():
+    # one common modulus over labelled populations = one Weibull fit of all failures pooled
+    # (every survivor suspended): the modulus scipy's CensoredData fit finds for the pool
+    frame = simulate_campaign(np.random.default_rng(5), n=40, survive_at=430.0)
+    sp = fm.read_specimens(frame)
+    data, _ = mle._centred_data(sp)
+    closed = labelled_optimum(data, mle.common_modulus_tie(2), 1e-10)
+    pooled = stats.CensoredData(uncensored=sp.strength[sp.failed], right=sp.strength[~sp.failed])
+    modulus, _, _ = stats.weibull_min.fit(pooled, floc=0)
+    assert np.exp(closed.theta[0]) == pytest.approx(modulus, rel=1e-4)   # scipy's optimiser tolerance
+
+
+def test_fit_intervals_equal_the_general_path():
+    frame = simulate_campaign(np.random.default_rng(21), n=30)
+    result = fm.fit(frame)
+    sp, data, centre, opt, deriv, lower, upper = _fit_parts(frame)
+    for j, pop in enumerate(result.populations):
+        m_lo, m_hi = profile_interval(deriv, opt, j, 0.90, lower=lower, upper=upper,
+                                      limits=(lik.LOG_MODULUS_MIN, lik.LOG_MODULUS_MAX))
+        s_lo, s_hi = profile_interval(deriv, opt, 2 + j, 0.90, lower=lower, upper=upper)
+        np.testing.assert_allclose(np.log(pop.modulus_interval), [m_lo, m_hi], atol=2e-9)
+        np.testing.assert_allclose(np.log(pop.strength_interval), np.array([s_lo, s_hi]) + centre, atol=2e-9)
+
+
+def test_chi2_cutoff_equals_scipy_stats():
+    for confidence in (0.5, 0.8, 0.9, 0.95, 0.99):
+        for df in (1, 2, 3):
+            assert chi2_cutoff(confidence, df) == 0.5 * stats.chi2.ppf(confidence, df)
+
+
+def test_many_small_labelled_populations_equal_the_general_path():
+    # 12 populations of 3 failures each: every end point, batched or searched population by
+    # population, equals the bracketing search on the whole 24-parameter likelihood
+    rng = np.random.default_rng(8)
+    labels = np.repeat([f"L{i:02d}" for i in range(12)], 3)
+    frame = pd.DataFrame({"strength": 400 * rng.weibull(8, labels.size), "origin": labels})
+    _, data, _, opt, deriv, lower, upper = _fit_parts(frame)
+    limits = lambda i: (lik.LOG_MODULUS_MIN, lik.LOG_MODULUS_MAX) if i < 12 else (-np.inf, np.inf)
+    batched = batched_profile_intervals(data, opt, 0.90, lower, upper, limits=limits)
+    for i in (0, 5, 11, 12, 17, 23):
+        general = profile_interval(deriv, opt, i, 0.90, lower=lower, upper=upper, limits=limits(i))
+        np.testing.assert_allclose(batched[i], general, rtol=0, atol=2e-9)
