@@ -119,6 +119,7 @@ def compare(
         bayes: also run the Bayesian fits and score by PSIS-LOO (slower, the default).
         bootstrap: parametric-bootstrap replicates for the partial-vs-concurrent test (0: skip).
     """
+    from .bayes import fit_bayes
     from .fit import fit
 
     k = len(specimens.populations)
@@ -138,8 +139,9 @@ def compare(
                 if name == "concurrent-common-modulus":
                     continue
                 model = "concurrent" if name in ("single", "concurrent") else name
-                bayes_fits[name] = fit(specimens, method="bayes", model=model, common_modulus=(name == "single" and k > 1),
-                                       seed=seed, target_ess=target_ess, confidence=confidence)
+                # the maximum-likelihood fit made above is the sampler's start: not made twice
+                bayes_fits[name] = fit_bayes(specimens, confidence, model=model, seed=seed, target_ess=target_ess,
+                                             common_modulus=(name == "single" and k > 1), mle=fits[name])
             if k > 1:
                 bayes_fits["concurrent-common-modulus"] = bayes_fits["single"]
 
