@@ -154,7 +154,7 @@ def one_step_without_label(fit: _Fitted, rows: np.ndarray, step: float = 1e-5, g
         own = fit.data.candidates[rows].astype(float)                      # the written label
         z = m * (y[:, None] - v)
         grad = np.concatenate([(share - own) * (1 + z), m * (own - share)], axis=1)
-        return fit.theta + np.einsum("np,qp->nq", grad, np.asarray(fit.covariance))   # (einsum: BLAS is slow on tall-thin)
+        return fit.theta + np.einsum("np,qp->nq", grad, np.asarray(fit.covariance))   # BLAS is slow on tall-thin
     P = fit.theta.size
     grad = np.empty((rows.size, P))
     withheld = _withheld_all(fit.data)
@@ -165,7 +165,7 @@ def one_step_without_label(fit: _Fitted, rows: np.ndarray, step: float = 1e-5, g
         change = [fit.spec.pointwise(withheld, t)[rows] - fit.spec.pointwise(fit.data, t)[rows]
                   for t in (fit.theta + shift, fit.theta - shift)]
         grad[:, p] = (change[0] - change[1]) / (2 * step)
-    return fit.theta + np.einsum("np,qp->nq", grad, np.asarray(fit.covariance))   # (einsum: BLAS is slow on tall-thin)
+    return fit.theta + np.einsum("np,qp->nq", grad, np.asarray(fit.covariance))
 
 
 def _withheld_all(data: lik.Data) -> lik.Data:
@@ -196,7 +196,8 @@ def label_probabilities(result, method: str = "auto") -> tuple[np.ndarray, np.nd
         from .progress import task
 
         thetas = np.empty((rows.size, fit.theta.size))
-        with task("refitting with each origin label withheld", rows.size, show=None if rows.size > 100 else False) as bar:
+        quiet = None if rows.size > 100 else False      # a hundred refits take well under a second
+        with task("refitting with each origin label withheld", rows.size, show=quiet) as bar:
             for n, i in enumerate(rows):
                 thetas[n] = refit_without_label(fit, int(i))
                 bar.step(n + 1)

@@ -229,7 +229,10 @@ def analyse(specimens, *, study=None, method="mle", compare_models=True, bayes=T
             with progress.task("comparing models"):
                 comparison = compare(specimens, bayes=bayes, bootstrap=boundary_replicates, seed=seed, confidence=conf)
     a = Analysis(specimens, study, mle, main, conf, seed, comparison)
-    a.extra["flaws"] = _flaws(specimens, study)
+    from .lots import comparison_for_report
+
+    a.extra["lots"] = comparison_for_report(specimens, study, conf, seed)   # None without a lot column
+    a.extra["flaws"] = _flaws(specimens, study, mle)
     drawn = with_draws(main, seed) if main.model.startswith("concurrent") else main   # intervals on predictions
     a.bottom, _ = bottom_line_of(drawn, study, specimens, comparison, seed=seed)
     comp = study.component_object() if study else None
@@ -251,7 +254,7 @@ def analyse(specimens, *, study=None, method="mle", compare_models=True, bayes=T
     return a
 
 
-def _flaws(specimens, study):
+def _flaws(specimens, study, result):
     """The flaw-size analysis when the table has flaw sizes: a FlawAnalysis, or the one-line
     reason it cannot be made (shown in its section), or None without flaw sizes."""
     from .fracture import analyse_flaws, has_flaw_sizes
@@ -259,7 +262,7 @@ def _flaws(specimens, study):
     if not has_flaw_sizes(specimens):
         return None
     try:
-        return analyse_flaws(specimens, study)
+        return analyse_flaws(specimens, study, fit=result if len(result.populations) > 1 else None)
     except FlawmixError as exc:
         return str(exc)
 
@@ -344,6 +347,8 @@ def _results(a: Analysis) -> dict:
         results["prediction"] = a.prediction.to_dict()
     if a.bottom is not None:
         results["bottom_line"] = a.bottom.to_dict()
+    if a.extra.get("lots") is not None and not isinstance(a.extra["lots"], str):
+        results["lots"] = a.extra["lots"].to_dict()
     if a.extra.get("flaws") is not None and not isinstance(a.extra["flaws"], str):
         results["flaws"] = a.extra["flaws"].to_dict()
     results["software"] = _versions()
@@ -445,6 +450,29 @@ def section_comparison(a: Analysis, figs, tables) -> list[str]:
     for t in c.tests:
         out.append(f"<p>Test {_esc(t.name)}: statistic {t.statistic:.2f}, p = {fmt.p_value(t.p_value)} "
                    f"({_esc(t.method)}). {_esc(t.meaning)}</p>")
+    return out
+
+
+def section_lots(a: Analysis, figs, tables) -> list[str]:
+    from . import plots
+
+    c = a.extra.get("lots")
+    if c is None:
+        return []
+    out = ["<h2>Lots compared population by population</h2>"]
+    if isinstance(c, str):   # the lots could not be compared: say why
+        return out + [f'<p class="caution">{_esc(c)}</p>']
+    out.append(f"<p>The table's lots ({_esc(', '.join(c.lots))}; baseline '{_esc(c.lots[0])}') fitted jointly, each "
+               "population with its own modulus and characteristic strength in every lot; likelihood-ratio tests of "
+               "'the same in every lot' and of 'the same modulus' for each population, the other populations free "
+               "per lot.</p>")
+    c.summary().to_csv(tables / "lots.csv")
+    out.append(_table(c.summary(), kinds={"failures": "count", "p same population": "p_value",
+                                          "p same modulus": "p_value"}))
+    out.append(f'<p class="verdict">{_esc(c.verdict)}</p>')
+    out.append(figs.add("lots_probability_plots", plots.lot_probability_plot(c),
+                        "Each population's failures lot by lot, at adjusted ranks within the lot, with each lot's own "
+                        "fitted line; every panel on the same axes."))
     return out
 
 
@@ -605,7 +633,7 @@ def section_flaws(a: Analysis, figs, tables) -> list[str]:
     flagged = flaws.flagged
     if len(flagged):
         shown = flagged[["specimen", "strength", "population", "flaw size", "location", "implied toughness"]].copy()
-        shown["why"] = [" ".join(n) for n in flagged["notes"]]
+        shown["why"] = ["; ".join(n) for n in flagged["notes"]]
         out.append("<h3>Specimens to look at again</h3>" + _table(shown, index=False))
     out.append(figs.add("flaw_sizes", plots.flaw_size_plot(flaws).figure,
                         "Strength against measured flaw size on logarithmic axes; each line is σ = K_Ic/(Y·√a) for "
@@ -647,8 +675,8 @@ def section_cautions(a: Analysis, figs, tables) -> list[str]:
 
 
 SECTIONS = [section_bottom_line, section_data, section_probability_plot, section_estimates, section_comparison,
-            section_limits, section_component, section_origins, section_flaws, section_methods, section_software,
-            section_warnings, section_cautions]
+            section_lots, section_limits, section_component, section_origins, section_flaws, section_methods,
+            section_software, section_warnings, section_cautions]
 
 
 def _json_default(x):

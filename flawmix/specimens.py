@@ -291,7 +291,8 @@ def read_specimens(
     origin = rows["origin"]
     candidates, pops, readings = _map_origins(table, rows, pops, vocabulary)
     warnings = [*_origin_warnings(readings, rows, populations is None, vocabulary),
-                *plausibility_warning(rows["strength"], unit, table.source)]
+                *plausibility_warning(rows["strength"], unit, table.source),
+                *_outlier_warnings(table, rows, columns["strength"])]
     used = rows["used"]
     return Specimens(
         strength=rows["strength"], failed=rows["failed"], candidates=candidates, populations=pops, unit=unit,
@@ -446,13 +447,34 @@ def _strengths(table: RawTable, j: int, records: np.ndarray, unit: str) -> np.nd
     return values
 
 
+OUTLIER_RATIO = 1e3    # a strength this many times above or below the median is most likely a typo
+
+
+def _outlier_warnings(table: RawTable, rows: dict, j: int) -> list[str]:
+    """Strengths a thousand times above or below the median (1e300 among 400s): named by place,
+    since no brittle material spans three decades within one table."""
+    strength = rows["strength"]
+    if strength.size < 3:
+        return []
+    median = float(np.median(strength))
+    far = np.flatnonzero((strength > median * OUTLIER_RATIO) | (strength < median / OUTLIER_RATIO))
+    out = [f"{table.at(int(rows['records'][r]), table.header[j])}strength {strength[r]:.4g} is "
+           f"{'above' if strength[r] > median else 'below'} the median {median:.4g} by a factor of "
+           f"{max(strength[r] / median, median / strength[r]):.3g}; check it for a typo (or a unit)"
+           for r in far[:3]]
+    if far.size > 3:
+        out.append(f"{where(table.source)}{far.size - 3} more strengths lie over {OUTLIER_RATIO:g} times from the "
+                   "median; check the strength column")
+    return out
+
+
 def _strength_problem(cell, value: float, unit: str, delimiter: str | None) -> str:
     s = "" if cell is None or (isinstance(cell, float) and np.isnan(cell)) else str(cell).strip()
     if s.lower() in _MISSING:
         return f"missing value; enter the failure stress (or withstood stress) in {unit}, or mark the row excluded"
     if np.isnan(value):
         number, _, rest = s.partition(" ")
-        if rest and _is_number(number):
+        if rest and _is_number(number) and not any(ch.isdigit() for ch in rest):
             return (f"'{s}' is not a number; write the unit once in the header ('strength ({rest.strip()})' or "
                     "--unit) and only numbers in the cells")
         if "," in s and _is_number(s.replace(",", ".")):
@@ -605,6 +627,9 @@ def _accounting(table: RawTable, rows: dict, readings: dict) -> dict:
         "excluded_rows": excluded,
         "origins": {"unidentified": unidentified, "uncertain": int((readings["uncertain"] & failed).sum())},
     }
+FEW_FAILURES = 5     # below this many certain failures a population's estimate is flagged (common practice)
+
+
 def check_estimable(specimens: Specimens) -> list[str]:
     """Raise for populations with no failures; return warnings for weakly identified ones."""
     warnings: list[str] = list(specimens.warnings)   # doubts found while reading the table
@@ -633,4 +658,8 @@ def check_estimable(specimens: Specimens) -> list[str]:
                 )
             else:
                 warnings.append(f"population '{name}' has only one failure; its estimate is unreliable")
+        elif certain[j] < FEW_FAILURES:
+            warnings.append(f"population '{name}' has only {int(certain[j])} failure{'s' if certain[j] > 1 else ''} attributed to it with certainty "
+                            f"(fewer than {FEW_FAILURES}); its modulus and characteristic strength are weakly "
+                            "determined, and conclusions resting on it are not supported by the data")
     return warnings

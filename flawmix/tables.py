@@ -92,16 +92,16 @@ def decode(path: Path, data: bytes) -> bytes:
             return data.decode("utf-16").encode("utf-8")
         except UnicodeDecodeError as exc:
             raise FlawmixError(f"{path}: byte offset {exc.start}: broken UTF-16 text; re-save the file as UTF-8") from None
+    if b"\x00" in data:      # before the UTF-8 check: UTF-16 without a byte-order mark is the likely cause
+        offset = data.index(b"\x00")
+        raise FlawmixError(f"{path}: byte offset {offset}: a NUL byte (UTF-16 without a byte-order mark, or not a "
+                           "text file); re-save the file as UTF-8")
     try:
         data.decode("utf-8")
     except UnicodeDecodeError as exc:
         line = data.count(b"\n", 0, exc.start) + 1
         raise FlawmixError(f"{path}: byte offset {exc.start} (line {line}): byte 0x{data[exc.start]:02x} is not "
                            "UTF-8 text; re-save the file as UTF-8 (e.g. 'CSV UTF-8' in a spreadsheet program)") from None
-    if b"\x00" in data:
-        offset = data.index(b"\x00")
-        raise FlawmixError(f"{path}: byte offset {offset}: a NUL byte (UTF-16 without a byte-order mark, or not a "
-                           "text file); re-save the file as UTF-8")
     return data
 
 
@@ -217,6 +217,7 @@ def _read_workbook(path: Path, data: bytes, sheet, checksum: str) -> RawTable:
         import openpyxl  # noqa: F401
     except ImportError:
         raise FlawmixError(f"{path}: reading Excel workbooks needs openpyxl; run: pip install 'flawmix[excel]'") from None
+    _check_workbook_bytes(path, data)
     try:
         sheets = pd.read_excel(io.BytesIO(data), sheet_name=None, header=None, dtype=str, keep_default_na=False,
                                na_values=["\x00"])
@@ -229,7 +230,7 @@ def _read_workbook(path: Path, data: bytes, sheet, checksum: str) -> RawTable:
         raise FlawmixError(f"{path}: the workbook has no sheets; add one with the specimen table")
     chosen = _choose_sheet(path, names, sheet)
     frame = sheets[chosen]
-    while len(frame) and frame.iloc[0].isna().all():      # blank rows above the header
+    while len(frame) and _blank_cells(frame.iloc[0]):      # blank rows above the header
         frame = frame.iloc[1:]
     first_row = frame.index[0] + 1 if len(frame) else 1
     if not len(frame):
@@ -242,6 +243,31 @@ def _read_workbook(path: Path, data: bytes, sheet, checksum: str) -> RawTable:
         if len(cells) else np.zeros(0, dtype=bool)
     return RawTable(header, cells, f"{path} [sheet '{chosen}']", "row", checksum, None, blank,
                     lines=np.arange(len(cells)) + first_row + 1, sheets=sheets, header_line=int(first_row))
+
+
+def _blank_cells(cells: pd.Series) -> bool:
+    """True when every cell is missing or white space (empty cells read as '')."""
+    return bool(cells.fillna("").astype(str).str.strip().eq("").all())
+
+
+def _check_workbook_bytes(path: Path, data: bytes) -> None:
+    """An .xlsx is a zip archive holding xl/workbook.xml: say which it is not, before the
+    spreadsheet library answers with its own internals."""
+    import zipfile
+
+    if not data.startswith(b"PK\x03\x04"):
+        kind = "an old .xls workbook" if data.startswith(b"\xd0\xcf\x11\xe0") else "text or another format"
+        raise FlawmixError(f"{path}: not an .xlsx workbook (its bytes look like {kind}); save it from the spreadsheet "
+                           "program as .xlsx, or export the sheet as CSV (UTF-8) and give that file")
+    try:
+        with zipfile.ZipFile(io.BytesIO(data)) as archive:
+            names = set(archive.namelist())
+    except (zipfile.BadZipFile, OSError, EOFError):
+        raise FlawmixError(f"{path}: the workbook is damaged (an incomplete or broken zip archive); open it in a "
+                           "spreadsheet program and save it again as .xlsx, or export the sheet as CSV (UTF-8)") from None
+    if "xl/workbook.xml" not in names:
+        raise FlawmixError(f"{path}: a zip archive but not an .xlsx workbook (no xl/workbook.xml); give the "
+                           "specimen table as .xlsx or CSV (UTF-8)")
 
 
 def _choose_sheet(path: Path, names: list[str], sheet) -> str:
@@ -263,7 +289,7 @@ def _choose_sheet(path: Path, names: list[str], sheet) -> str:
 def _sheet_listing(sheets: dict) -> str:
     out = []
     for name, frame in sheets.items():
-        rows = frame.dropna(how="all")
-        head = [str(c).strip() for c in rows.iloc[0] if not pd.isna(c)] if len(rows) else []
+        rows = frame[~frame.fillna("").astype(str).apply(lambda col: col.str.strip() == "").all(axis=1)]
+        head = [str(c).strip() for c in rows.iloc[0] if not pd.isna(c) and str(c).strip()] if len(rows) else []
         out.append(f"'{name}' ({', '.join(head) if head else 'empty'})")
     return "; ".join(out)

@@ -14,6 +14,7 @@ from .errors import FlawmixError
 UNIDENTIFIED_WORDS = ("", "?", "-", "--", "unknown", "unidentified", "n.d.", "nd", "n.d", "not determined",
                       "not found", "none", "nan", "n/a", "na")
 SEPARATORS = ("|", "/", " or ")
+MAX_PAIR_WARNINGS = 10      # look-alike label pairs named one by one; the rest are counted
 UNCERTAIN_CHOICES = ("count", "unidentified")
 # Fragments of labels that look like "not identified" written another way (a warning, not a rule).
 _UNKNOWN_HINTS = ("unknown", "unident", "undeterm", "not det", "not ident", "not visible", "not seen", "unclear",
@@ -118,7 +119,10 @@ def edit_distance(a: str, b: str, limit: int = 3) -> int:
 
 
 def _variants(a: str, b: str) -> bool:
-    """Labels that are likely one origin written two ways: plural, or a small typo."""
+    """Labels that are likely one origin written two ways: plural, or a small typo. Labels whose
+    numbers differ ('zone 1', 'zone 2') are told apart on purpose."""
+    if re.findall(r"\d+", a) != re.findall(r"\d+", b):
+        return False
     for x, y in ((a, b), (b, a)):
         if y in (x + "s", x + "es") or (x.endswith("y") and y == x[:-1] + "ies"):
             return True
@@ -140,10 +144,12 @@ def label_advice(counts: dict[str, int], written: dict[str, str]) -> list[str]:
     labels = sorted(counts, key=lambda x: (-counts[x], x))
     if len(labels) > 300:
         return out      # a pairwise comparison of this many labels says little; the count warning does
-    for i, a in enumerate(labels):
-        for b in labels[i + 1:]:
-            if _variants(a, b):
-                out.append(f"origin labels '{written[a]}' ({counts[a]}) and '{written[b]}' ({counts[b]}) look like "
-                           f"one origin written two ways and are fitted as two populations; if they are one, group "
-                           f"them: --group '{a}={a},{b}' (or [populations] in the study file)")
+    pairs = [(a, b) for i, a in enumerate(labels) for b in labels[i + 1:] if _variants(a, b)]
+    for a, b in pairs[:MAX_PAIR_WARNINGS]:
+        out.append(f"origin labels '{written[a]}' ({counts[a]}) and '{written[b]}' ({counts[b]}) look like "
+                   f"one origin written two ways and are fitted as two populations; if they are one, group "
+                   f"them: --group '{a}={a},{b}' (or [populations] in the study file)")
+    if len(pairs) > MAX_PAIR_WARNINGS:
+        out.append(f"{len(pairs) - MAX_PAIR_WARNINGS} more pairs of origin labels look alike; see the origin table "
+                   "and group them (--group or [populations] in the study file)")
     return out

@@ -163,6 +163,10 @@ def test_example_flags_its_planted_specimens():
     a = analyse_flaws(sp, study, stress=400.0)
     assert {"SN-03", "SN-06", "SN-08", "SN-27"} <= set(a.flagged["specimen"])
     assert a.component_stress == 300.0
+    # the planted swapped label is caught by both routes: location and the origin check of a fit
+    both = analyse_flaws(sp, study, fit=fm.fit(sp, intervals="none")).specimens.set_index("specimen")
+    assert both.loc["SN-06", "label check"] is True and both.loc["SN-06", "location consistent"] is False
+    assert both["label check"].sum() == 1
     pores = a.populations.loc["pores"]
     assert pores["critical at component stress"] == pytest.approx(
         (5.5 / (2 / math.sqrt(math.pi) * 300.0))**2 * 1e6, rel=1e-9)   # a_c = [K_Ic/(Yσ)]², µm
