@@ -56,7 +56,7 @@ def profile_end_points(data: lik.Data, theta_hat: np.ndarray, hessian: np.ndarra
 
     data: one concurrent data set (no leading dims, no geometries); theta_hat (2k,) the
     maximum and ``hessian`` (2k, 2k) the Hessian there; drops: (below, above) fall in
-    log-likelihood; lower/upper (2k,): bounds no parameter of an end point may pass.
+    log-likelihood, or one such row per entry of ``indices``; lower/upper (2k,): bounds no parameter of an end point may pass.
     Returns (ends (len(indices), 2), solved (len(indices), 2) bool).
     """
     indices = np.asarray(indices, dtype=int)
@@ -67,7 +67,9 @@ def profile_end_points(data: lik.Data, theta_hat: np.ndarray, hessian: np.ndarra
     # one row per end point: parameter, side
     rows_index = np.repeat(indices, 2)
     direction = np.tile([-1.0, 1.0], indices.size)
-    drop = np.tile(np.asarray(drops, dtype=float), indices.size)
+    drops = np.asarray(drops, dtype=float)
+    # one (below, above) pair for every parameter, or a pair per parameter in ``indices``
+    drop = drops.reshape(-1) if drops.ndim == 2 else np.tile(drops, indices.size)
     if separable:
         population = rows_index % k
         local_index = (rows_index >= k).astype(int)                       # 0: modulus, 1: scale
@@ -171,12 +173,15 @@ def batched_profile_intervals(data: lik.Data, optimum, confidence: float, lower,
     :func:`optimize.profile_interval` on that population's own two-parameter likelihood
     when origins are labelled (the same profile, up to a constant); with unidentified origins
     they are left out, for the caller's bracketing search on the whole likelihood.
-    ``drops`` as there; ``limits(index)`` gives each parameter's (low, high) search limits."""
+    ``drops``: (below, above) for every parameter, or (2k, 2) one pair per parameter (a
+    calibrated cut-off); ``limits(index)`` gives each parameter's (low, high) search limits."""
     from .optimize import Optimum, chi2_cutoff, profile_interval
 
+    P, k = optimum.theta.size, data.k
     if drops is None:
         drops = (chi2_cutoff(confidence), chi2_cutoff(confidence))
-    P, k = optimum.theta.size, data.k
+    drops = np.asarray(drops, dtype=float)
+    per_parameter = drops if drops.ndim == 2 else np.tile(drops, (P, 1))
     if P != 2 * k or not np.all(np.isfinite(optimum.hessian)):
         return {}
     ends, solved = profile_end_points(data, optimum.theta, optimum.hessian, np.arange(P), drops, lower, upper)
@@ -191,6 +196,6 @@ def batched_profile_intervals(data: lik.Data, optimum, confidence: float, lower,
         ll, grad, hess = lik.concurrent_derivatives(own, theta)
         alone = Optimum(theta, ll, grad, hess, 0, optimum.converged)
         out[i] = profile_interval(lambda t: lik.concurrent_derivatives(own, t), alone, int(i >= k), confidence,
-                                  lower=lower[columns], upper=upper[columns], drops=drops,
+                                  lower=lower[columns], upper=upper[columns], drops=tuple(per_parameter[i]),
                                   limits=limits(i) if limits else (-np.inf, np.inf), problems=problems)
     return out
