@@ -212,3 +212,21 @@ def test_batched_end_points_with_a_drop_per_parameter_equal_the_bracketing_searc
         general = profile_interval(deriv, opt, i, 0.90, lower=lower, upper=upper, limits=limits(i),
                                    drops=tuple(drops[i]))
         np.testing.assert_allclose(batched[i], general, rtol=0, atol=2e-9)
+
+
+@pytest.mark.parametrize("seed, survive_at, n", [(0, None, 30), (1, 430.0, 30), (3, 440.0, 60)])
+def test_labelled_calibration_equals_the_general_refits(seed, survive_at, n, monkeypatch):
+    # the closed-form refits of labelled bootstrap campaigns give the cut-offs, refits and
+    # covariances the batched ascent on the joint likelihood gives (forced by hiding that
+    # the campaigns are labelled)
+    from flawmix import calibration
+
+    sp = fm.read_specimens(simulate_campaign(np.random.default_rng(seed), n=n, survive_at=survive_at))
+    fitted = fm.fit(sp, intervals="none")
+    closed = calibration.calibrate(sp, fitted.moduli, fitted.characteristic_strengths, 0.90, seed=0)
+    monkeypatch.setattr(lik.Data, "certain", property(lambda self: False))
+    general = calibration.calibrate(sp, fitted.moduli, fitted.characteristic_strengths, 0.90, seed=0)
+    np.testing.assert_allclose(closed.drops, general.drops, rtol=0, atol=1e-9)
+    np.testing.assert_allclose(closed.signed_roots, general.signed_roots, rtol=0, atol=1e-7)
+    np.testing.assert_allclose(closed.theta, general.theta, rtol=0, atol=1e-6)     # ascent stops at |score| 1e-6
+    np.testing.assert_allclose(closed.covariance, general.covariance, rtol=1e-5, atol=1e-9)
