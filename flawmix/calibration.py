@@ -68,20 +68,30 @@ def _ascend(data: lik.Data, theta: np.ndarray, free: np.ndarray, steps: int, tol
         step[:, idx] = step_f
         sub = lik.Data(data.y[a], data.failed[a], data.candidates[a])
         t_a, ll_a = theta[a], ll[a]
-        accepted = np.zeros(a.size, bool)
-        scale = np.ones(a.size)
-        for _ in range(30):
-            trial = np.clip(t_a + scale[:, None] * step, lo, hi)
-            ll_new = lik.concurrent_loglik(sub, trial[:, :k], trial[:, k:])
-            good = ~accepted & (ll_new >= ll_a - 1e-10 * np.maximum(1.0, np.abs(ll_a)))
-            t_a = np.where(good[:, None], trial, t_a)
-            accepted |= good
+        floor = ll_a - 1e-10 * np.maximum(1.0, np.abs(ll_a))
+        # the full step, with derivatives at once: most rows take it, and need no second call
+        full = np.clip(t_a + step, lo, hi)
+        ll_full, g_full, H_full = lik.concurrent_derivatives_batch(sub, full)
+        accepted = ll_full >= floor
+        t_a = np.where(accepted[:, None], full, t_a)
+        scale = np.where(accepted, 1.0, 0.5)
+        for _ in range(29):
             if accepted.all():
                 break
+            trial = np.clip(t_a + scale[:, None] * step, lo, hi)
+            ll_new = lik.concurrent_loglik(sub, trial[:, :k], trial[:, k:])
+            good = ~accepted & (ll_new >= floor)
+            t_a = np.where(good[:, None], trial, t_a)
+            accepted |= good
             scale = np.where(accepted, scale, scale / 2)
         theta[a] = t_a
         previous = ll[a]
-        ll[a], g[a], H[a] = lik.concurrent_derivatives_batch(sub, t_a)
+        ll_full[~accepted], g_full[~accepted], H_full[~accepted] = ll_a[~accepted], g[a][~accepted], H[a][~accepted]
+        halved = np.flatnonzero(accepted & (scale < 1.0))
+        if halved.size:
+            part = lik.Data(sub.y[halved], sub.failed[halved], sub.candidates[halved])
+            ll_full[halved], g_full[halved], H_full[halved] = lik.concurrent_derivatives_batch(part, t_a[halved])
+        ll[a], g[a], H[a] = ll_full, g_full, H_full
         # no ascent left that matters for a likelihood ratio (a maximum, a modulus at its
         # bound, or a likelihood still creeping up towards an infinite modulus)
         stalled = ~accepted | (ll[a] - previous <= 1e-7)
