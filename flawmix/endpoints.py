@@ -129,7 +129,7 @@ def _solve(derivatives, theta_hat, hess_hat, index, direction, target, drop, pro
         jac = hess.copy()
         jac[rows, index, :] = grad
         try:
-            step = -np.linalg.solve(jac, residual[..., None])[..., 0]
+            step = -_solve_linear(jac, residual)
         except np.linalg.LinAlgError:
             break
         largest = np.abs(step).max(axis=1)
@@ -148,6 +148,20 @@ def _solve(derivatives, theta_hat, hess_hat, index, direction, target, drop, pro
         if project is not None:
             theta = project(theta)
     return theta, done & ~failed & _is_profile_maximum(hess, theta, index)
+
+
+def _solve_linear(matrix: np.ndarray, vector: np.ndarray) -> np.ndarray:
+    """x with matrix @ x = vector for stacks (E, P, P), (E, P); 2 x 2 systems by Cramer's rule
+    (np.linalg.solve's per-call overhead dominates for so small a system)."""
+    if matrix.shape[-1] != 2:
+        return np.linalg.solve(matrix, vector[..., None])[..., 0]
+    a, b, c, d = matrix[:, 0, 0], matrix[:, 0, 1], matrix[:, 1, 0], matrix[:, 1, 1]
+    with np.errstate(divide="ignore", invalid="ignore"):
+        inverse_det = 1.0 / (a * d - b * c)
+    out = np.empty_like(vector)
+    out[:, 0] = (d * vector[:, 0] - b * vector[:, 1]) * inverse_det
+    out[:, 1] = (a * vector[:, 1] - c * vector[:, 0]) * inverse_det
+    return out
 
 
 def _is_profile_maximum(hess, theta, index) -> np.ndarray:
