@@ -175,8 +175,10 @@ def target_million(quick):
     from bench_fit import bench_large
 
     d = bench_large()
-    seconds = d["1e6 specimens, 3 populations, 10% unidentified, fit incl. intervals (s)"]
-    return ("fm.fit 1e6 specimens, 3 pops, with intervals (s)", seconds, "target", 3.0, 3.0 / seconds, 1)
+    wall = d["1e6 specimens, 3 populations, 10% unidentified, fit incl. intervals (s)"]
+    seconds = d["the same in CPU seconds"]
+    print(f"  (the same fit took {wall:.3g} s of wall time, peak memory {d['peak memory of the process (MB)']:.0f} MB)")
+    return ("fm.fit 1e6 specimens, 3 pops, with intervals (CPU s)", seconds, "target", 3.0, 3.0 / seconds, 1)
 
 
 def main():
