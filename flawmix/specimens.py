@@ -550,7 +550,7 @@ def _map_origins(table: RawTable, rows: dict, pops, vocabulary: OriginVocabulary
                 unmatched.setdefault(lab, int(records[np.flatnonzero((codes == u) & failed)[0]]))
         target = "any (unidentified)" if r.decision == "unidentified" else \
             " or ".join(n for n, c in zip(names, per_origin[u]) if c)
-        origin_map.append({"origin as written": r.written if r.written.strip() else "(empty)",
+        origin_map.append({"origin as written": _as_written(r.written),
                            "read as": r.decision, "population": target, "specimens": int(counts[u])})
     if unmatched:
         listing = "; ".join(f"'{lab}' ({table.position(i)})" for lab, i in unmatched.items())
@@ -565,6 +565,16 @@ def _map_origins(table: RawTable, rows: dict, pops, vocabulary: OriginVocabulary
     return candidates, pops, {"unidentified": decision[codes] == "unidentified" if len(codes) else np.zeros(0, bool),
                               "uncertain": decision[codes] == "uncertain" if len(codes) else np.zeros(0, bool),
                               "map": origin_map, "readings": readings, "counts": counts}
+
+
+def _as_written(text: str) -> str:
+    """An origin as written, for the origin table: '(empty)' for nothing, and a note when its
+    accents are combining characters (it then looks like, and is read as, the precomposed one)."""
+    import unicodedata
+
+    if not text.strip():
+        return "(empty)"
+    return text if unicodedata.is_normalized("NFC", text) else f"{text} (combining accents)"
 
 
 def _check_user_words(pops, vocabulary: OriginVocabulary) -> None:

@@ -229,6 +229,9 @@ CASES = [
     Case("origin/ambiguous_unknown_population.csv", **ok(n=4, failed=4, survived=0, unidentified=0, ambiguous=1,
                                                          populations=("chip", "inclusion", "pore")),
          id="ungrouped"),
+    Case("origin/every_decision.csv", ("--group", "pores=pore", "--group", "inclusions=inclusion,inclusión"),
+         **ok(("1 failure origin(s) written with a trailing '?'",), n=12, failed=10, survived=2, unidentified=2,
+              ambiguous=2, uncertain=1, populations=("pores", "inclusions"), excluded=1)),
     Case("origin/pore_or_unknown.csv", **ok(n=3, failed=3, survived=0, unidentified=1, ambiguous=0,
                                             populations=("inclusion", "pore"))),
     # 200 one-failure populations: reading is the input side's; fitting them is not asserted
@@ -418,3 +421,103 @@ def test_corpus_has_every_file_under_test():
              and p.suffix in (".csv", ".tsv", ".txt", ".xlsx", ".toml") and p.parent.name != "folder.csv"}
     assert files - used == set()
     assert len(CASES) >= 60
+
+
+# ---- the origin table: every vocabulary decision, in the API, the JSON and the report --------
+
+EVERY_DECISION = [   # origin as written, read as, population, specimens: from origin/every_decision.csv by hand
+    ("(empty)", "unidentified", "any (unidentified)", 1),
+    ("n.d.", "unidentified", "any (unidentified)", 1),
+    ("inclusion", "label", "inclusions", 1),
+    ("inclusion?", "uncertain", "inclusions", 1),
+    ("inclusio\u0301n (combining accents)", "label", "inclusions", 1),
+    ("inclusi\u00f3n", "label", "inclusions", 1),
+    ("Pore", "label", "pores", 1),
+    ("pore", "label", "pores", 1),
+    ("pore / inclusion", "ambiguous", "pores or inclusions", 1),
+    ("pore|inclusion", "ambiguous", "pores or inclusions", 1),
+    ("(survived)", "survivor", "—", 2),
+]
+GROUPS = ("--group", "pores=pore", "--group", "inclusions=inclusion,inclusión")
+
+
+def test_origin_table_shows_every_decision(tmp_path):
+    from types import SimpleNamespace
+
+    from flawmix.fit import fit
+    from flawmix.report import section_data
+
+    _, specimens = _read(Case("origin/every_decision.csv", GROUPS))
+    rows = [tuple(r) for r in specimens.origin_table().itertuples(index=False)]
+    assert rows == EVERY_DECISION
+    assert specimens.accounting["excluded_rows"] == [
+        {"where": "line 14", "specimen": "D13", "reason": "status says excluded (not a valid test)"}]
+    with pytest.warns(FlawmixWarning, match="trailing '\\?'"):
+        data = fit(specimens, intervals="none").to_dict()["accounting"]
+    assert [tuple(e.values()) for e in data["origins_as_written"]] == EVERY_DECISION
+    assert (data["rows_read"], data["used"], data["excluded"]) == (13, 12, 1)
+    html = "".join(section_data(SimpleNamespace(specimens=specimens), None, tmp_path))
+    for written, decision, population, _ in EVERY_DECISION:
+        for text in (written, decision, population):
+            assert text.replace("&", "&amp;") in html
+    assert "status says excluded (not a valid test)" in html
+    table = (tmp_path / "origins.csv").read_text(encoding="utf-8")
+    assert table.splitlines()[0] == "origin as written,read as,population,specimens" and "pore|inclusion" in table
+
+
+def test_html_and_script_in_labels_and_ids_are_escaped_in_the_report(tmp_path):
+    from types import SimpleNamespace
+
+    from flawmix.report import section_data
+
+    _, specimens = _read(Case("origin/html_script.csv"))
+    html = "".join(section_data(SimpleNamespace(specimens=specimens), None, tmp_path))
+    assert "<script" not in html and "&lt;script&gt;alert(1)&lt;" in html
+    assert specimens.ids[0] == "<img src=x onerror=alert(1)>"      # read as written, escaped only on output
+
+
+@pytest.mark.slow
+def test_a_million_rows_are_read_and_an_error_in_the_last_names_its_line(tmp_path):
+    """10^6 specimens, generated here (never in the repository): every row accounted for; the
+    same file with one bad strength in its last row names physical line 1,000,001."""
+    import numpy as np
+
+    from flawmix.specimens import read_specimens
+
+    n = 1_000_000
+    rng = np.random.default_rng(20261203)
+    strength = 400.0 * rng.weibull(8.0, n)
+    origin = np.where(rng.random(n) < 0.5, "pore", np.where(rng.random(n) < 0.2, "n.d.", "inclusion"))
+    lines = ["specimen,strength,origin"] + [f"S{i},{s:.3f},{o}" for i, (s, o) in enumerate(zip(strength, origin))]
+    path = tmp_path / "million.csv"
+    path.write_text("\n".join(lines) + "\n", encoding="utf-8")
+    specimens = read_specimens(path)
+    assert specimens.n_specimens == n and specimens.accounting["used"] == n
+    assert specimens.n_unidentified == int((origin == "n.d.").sum())
+    assert specimens.population_names == ("inclusion", "pore")
+    np.testing.assert_allclose(specimens.strength, np.round(strength, 3))
+    lines[-1] = lines[-1].rsplit(",", 2)[0] + ",4OO,pore"
+    path.write_text("\n".join(lines) + "\n", encoding="utf-8")
+    with pytest.raises(FlawmixError, match=r"line 1000001, column 'strength': '4OO' is not a number"):
+        read_specimens(path)
+
+
+SUBPROCESS_CASES = ["encoding/latin1.csv", "excel/truncated.xlsx", "misc/folder.csv", "study/syntax_error.toml",
+                    "rows/trailing_comma_every_row.csv"]
+
+
+def test_errors_from_a_real_process_are_one_line_exit_2():
+    """A few corpus errors through a real `python -m flawmix` process (exit status, stderr as
+    the user sees it: no traceback, no library warning); the rest run in-process above."""
+    import os
+    import subprocess
+    import sys
+
+    chosen = [c for c in CASES if (c.study if c.table == "study/bars.csv" else c.table) in SUBPROCESS_CASES]
+    assert len(chosen) == len(SUBPROCESS_CASES)
+    for case in chosen:
+        run = subprocess.run([sys.executable, "-m", "flawmix", *case.argv()], capture_output=True, text=True,
+                             env={**os.environ, "PYTHONPATH": str(Path(__file__).parent.parent)})
+        lines = run.stderr.strip().splitlines()
+        assert run.returncode == 2 and run.stdout == "", run.stderr
+        assert len(lines) == 1 and lines[0].startswith("error: ") and case.error[-1] in lines[0], run.stderr
