@@ -41,6 +41,7 @@ class Case:
     warns: tuple[str, ...] = ()                # one fragment per expected warning while reading
     fit_warns: tuple[str, ...] | None = None   # one fragment per warning about the populations (before a fit)
     fit_exit: int | None = None                # exit status of `flawmix fit` (default: 2 for errors, 0 else)
+    fit_error: str | None = None               # a fragment of the fit's error, for tables read fine but not fittable
     fit_note: str | None = None                # why the fit's own outcome is not asserted here
     fit_fails_now: str | None = None           # estimation-side fault still open (strict xfail: remove when fixed)
     named: str | None = None                   # the file the message must name (default: the table)
@@ -181,7 +182,8 @@ CASES = [
     Case("status/odd_case.csv", **ok(n=9, failed=6, survived=3, unidentified=1, ambiguous=0,
                                      populations=("inclusion", "pore"))),
     Case("status/all_survivors.csv", **ok(n=3, failed=0, survived=3, unidentified=0, ambiguous=0,
-                                          populations=("all",)), fit_exit=2),
+                                          populations=("all",)), fit_exit=2,
+         fit_error="population(s) 'all' have no failures, so no finite Weibull estimate exists"),
     Case("status/survivor_with_bad_origin.csv", **ok(n=3, failed=2, survived=1, unidentified=0, ambiguous=0,
                                                      populations=("pore",))),
     # ---- origins ------------------------------------------------------------------------------
@@ -317,7 +319,11 @@ CASES = [
     Case(None, study="study/missing_population_label.toml", named="ambiguous_unknown_population.csv",
          **err("origin label(s) not in any population: 'chip' (line 3)")),
     Case(None, study="study/zero_failure_population.toml", named="bars.csv", fit_exit=2,
+         fit_error="population(s) 'chips' have no failures, so no finite Weibull estimate exists; remove them",
          **ok(n=6, failed=6, survived=0, unidentified=0, ambiguous=0, populations=("pores", "inclusions", "chips"))),
+    Case(None, study="study/sheet_key.toml", **ok(n=5, failed=4, survived=1, unidentified=1, ambiguous=0,
+                                                  populations=("inclusion", "pore"))),
+    Case(None, study="study/sheet_not_a_name.toml", **err("key 'sheet' must be a sheet name"), named="sheet_not_a_name.toml"),
     Case("study/bars.csv", study="study/no_such_study.toml", named="no_such_study.toml",
          **err("no such study file; check the path")),
 ]
@@ -396,6 +402,7 @@ def test_corpus_case_through_the_fit_command(case):
     if code == 2:
         lines = errors.strip().splitlines()
         assert len(lines) == 1 and lines[0].startswith("error: "), errors
+        assert case.fit_error is None or case.fit_error in lines[0], errors
     else:
         data = json.loads(out)
         assert data["accounting"]["used"] == case.result["n"]
@@ -521,3 +528,14 @@ def test_errors_from_a_real_process_are_one_line_exit_2():
         lines = run.stderr.strip().splitlines()
         assert run.returncode == 2 and run.stdout == "", run.stderr
         assert len(lines) == 1 and lines[0].startswith("error: ") and case.error[-1] in lines[0], run.stderr
+
+
+@pytest.mark.parametrize("table", ["origin/cjk_labels.csv"])
+def test_report_on_unusual_labels_has_no_library_warning(tmp_path, table):
+    """CJK labels: the report draws and writes them without a warning from matplotlib (missing
+    glyphs) or any other library (markup in labels: test_report and the escaping test above)."""
+    code, _, errors, caught = _run_main(["report", str(CORPUS / table), "--out", str(tmp_path / "r"), "--no-compare",
+                                         "--quiet"])
+    assert code == 0, errors
+    assert not caught, [f"{w.category.__name__}: {w.message}" for w in caught]
+    assert "Glyph" not in errors and "RuntimeWarning" not in errors
