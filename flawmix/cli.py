@@ -563,6 +563,9 @@ def main(argv=None) -> int:
     except KeyboardInterrupt:
         print("error: interrupted", file=sys.stderr)
         return 130
+    except BrokenPipeError:     # the reader of stdout went away (| head): stop quietly, as other tools do
+        os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+        return 141
     except Exception as exc:  # a bug, not a user error: one line, details on request
         if os.environ.get("FLAWMIX_DEBUG"):
             raise

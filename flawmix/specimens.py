@@ -477,7 +477,15 @@ def _strength_problem(cell, value: float, unit: str, delimiter: str | None) -> s
         if rest and _is_number(number) and not any(ch.isdigit() for ch in rest):
             return (f"'{s}' is not a number; write the unit once in the header ('strength ({rest.strip()})' or "
                     "--unit) and only numbers in the cells")
+        plain = s.replace(".", "").replace(",", "")
+        if "," in s and "." in s and _is_number(plain):
+            return (f"'{s}' is not a number (thousands separators?); write the stress without them, with a point "
+                    f"for decimals, like {s.replace('.', '').replace(',', '.') if s.rfind(',') > s.rfind('.') else s.replace(',', '')}")
         if "," in s and _is_number(s.replace(",", ".")):
+            digits_after = len(s) - s.rfind(",") - 1
+            if digits_after == 3 and s.count(",") >= 1 and _is_number(plain):
+                return (f"'{s}' is not a number (a thousands separator, or a decimal comma?); write "
+                        f"{plain} or {s.replace(',', '.')}, without separators")
             return (f"'{s}' is not a number (a decimal comma?); write {s.replace(',', '.')}, or save the table "
                     "with semicolons between cells so decimal commas are read")
         return f"'{s}' is not a number; write the stress as a plain number in {unit}"

@@ -75,6 +75,8 @@ CASES = [
     Case("layout/extra_columns.csv", **ok(**BASE)),
     Case("layout/strength_only.csv", **ok(n=5, failed=5, survived=0, unidentified=5, ambiguous=0, populations=("all",))),
     Case("layout/geometry_column.csv", **ok(**BASE)),
+    Case("layout/cr_only.csv", **ok(n=3, failed=3, survived=0, unidentified=3, ambiguous=0, populations=("all",))),
+    Case("layout/cr_only_bad_row.csv", **err("line 4", "column 'strength'", "'4x30' is not a number")),
     # ---- units in the header, --unit ----------------------------------------------------
     Case("header/unit_parentheses.csv", **ok(**BASE)),
     Case("header/unit_parentheses.csv", ("--unit", "MPa"), **ok(**BASE), id="same-unit-given"),
@@ -84,6 +86,10 @@ CASES = [
     Case("header/unit_brackets_ksi.csv", **{**ok(**BASE), "result": {**ok(**BASE)["result"], "unit": "ksi"}}),
     Case("header/unit_slash_sigma.csv", **ok(**BASE)),
     Case("header/unit_gpa.csv", **{**ok(**BASE), "result": {**ok(**BASE)["result"], "unit": "GPa"}}),
+    Case("header/unit_after_comma_semicolon.csv", **ok(n=4, failed=4, survived=0, unidentified=0, ambiguous=0,
+                                                        populations=("inclusion", "pore"))),
+    Case("header/nbsp_before_unit.csv", **ok(n=3, failed=3, survived=0, unidentified=0, ambiguous=0,
+                                             populations=("inclusion", "pore"))),
     Case("header/unit_unknown.csv", **err("line 1 (the header)", "column 'strength (N)'", "unknown stress unit 'N'",
                                           "give --unit")),
     Case("layout/comma.csv", ("--unit", "N/mm2"), **err("unknown stress unit 'N/mm2'", "use one of Pa, kPa, MPa"),
@@ -118,6 +124,10 @@ CASES = [
     Case("rows/blank_lines_inside.csv", **ok(**BASE, excluded=3)),
     Case("rows/blank_lines_then_bad_strength.csv", **err("line 10", "column 'strength'", "'47O' is not a number")),
     Case("rows/leading_blank_lines.csv", **ok(**BASE)),
+    Case("rows/delimiters_only_rows.csv", **ok(n=3, failed=3, survived=0, unidentified=0, ambiguous=0,
+                                               populations=("inclusion", "pore"), excluded=2)),
+    Case("rows/trailing_tab_every_row.tsv", **err("line 2: 4 cells but the header (line 1) has 3 (and 1 more line)",
+                                                 "a tab at the end of the line")),
     Case("rows/leading_blank_lines_bad_row.csv", **err("line 6", "column 'strength'", "-455 is not positive")),
     # once shifted the columns and fitted the widths: now the extra comma is named
     Case("rows/trailing_comma_every_row.csv", **err("line 2: 4 cells but the header (line 1) has 3 (and 3 more lines)",
@@ -151,7 +161,12 @@ CASES = [
     Case("strength/unquoted_decimal_comma.csv", **err("line 6: 5 cells but the header (line 1) has 4")),
     Case("strength/inner_space.csv", **err("line 6", "column 'strength'", "'4 12' is not a number; write the stress "
                                            "as a plain number")),
-    Case("strength/semicolon_thousands.csv", **err("line 3", "column 'strength'", "'1.234,5' is not a number")),
+    Case("strength/semicolon_thousands.csv", **err("line 3", "column 'strength'", "'1.234,5' is not a number "
+                                                   "(thousands separators?)", "like 1234.5")),
+    Case("strength/quoted_thousands.csv", **err("line 3", "column 'strength'", "'1,234' is not a number (a thousands "
+                                                "separator, or a decimal comma?); write 1234 or 1.234")),
+    Case("strength/number_forms.csv", **ok(n=5, failed=5, survived=0, unidentified=5, ambiguous=0,
+                                           populations=("all",))),
     Case("strength/spaces_around.csv", **ok(**BASE)),
     Case("strength/underscore_digits.csv", **ok(n=3, failed=3, survived=0, unidentified=3, ambiguous=0,
                                                 populations=("all",))),
@@ -215,6 +230,9 @@ CASES = [
     # '/' is a separator, so '</script>' splits: shown in the origin table; the report escapes all of it
     Case("origin/html_script.csv", **ok(n=3, failed=3, survived=0, unidentified=0, ambiguous=2,
                                         populations=("<script>alert(1)<", "pore", "script>"))),
+    # a zero-width space after one 'pore', a soft hyphen before another: one population
+    Case("origin/zero_width_characters.csv", **ok(n=4, failed=4, survived=0, unidentified=0, ambiguous=0,
+                                                  populations=("inclusion", "pore"))),
     Case("origin/cjk_labels.csv", **ok(n=4, failed=4, survived=0, unidentified=0, ambiguous=0,
                                        populations=("介在物", "気孔"))),
     Case("origin/typo_and_plural.csv", **ok(("'porosity' (5) and 'porosty' (1) look like one origin",
