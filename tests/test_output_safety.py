@@ -217,3 +217,15 @@ def test_output_into_a_closed_pipe_stops_quietly():
     errors = process.stderr.read()
     assert process.wait(timeout=60) == 141
     assert "internal error" not in errors and "Traceback" not in errors and "Exception ignored" not in errors
+
+
+def test_force_never_replaces_a_folder_that_is_not_a_report(tmp_path, monkeypatch):
+    folder = tmp_path / "results"
+    folder.mkdir()
+    (folder / "thesis.tex").write_text("years of work")
+    monkeypatch.setattr(report, "analyse", lambda *a, **k: pytest.fail("analysed before refusing"))
+    for extra in ([], ["--force"]):
+        code, errors = _main(["report", str(TABLE), "--out", str(folder), "--quiet", *extra])
+        assert code == 2 and len(errors.strip().splitlines()) == 1
+    assert "not a flawmix report folder" in errors
+    assert _leftovers(folder) == ["thesis.tex"] and (folder / "thesis.tex").read_text() == "years of work"
