@@ -12,7 +12,6 @@ import warnings as _warnings
 import numpy as np
 
 from . import progress as _progress
-from . import _arviz
 from . import diagnostics
 from . import likelihood as lik
 from .errors import FlawmixError, FlawmixWarning
@@ -35,6 +34,27 @@ def _start_ball(rng, theta, hessian, walkers, lower, upper):
     centre = np.clip(theta, lower + 0.05, upper - 0.05)
     ball = centre + 0.3 * sd * rng.standard_normal((walkers, P))
     return np.clip(ball, lower + 1e-3, upper - 1e-3)
+
+
+INDEPENDENCE_BURN = 100           # steps of burn-in when walkers start from importance draws
+INDEPENDENCE_MIN_ACCEPTANCE = 0.2  # below this the run is redone with DE moves alone
+
+
+def _independence_setup(theta_mle, hessian, log_prob, rng, walkers):
+    """(moves, starting ensemble) for an independence proposal from the mode, mixed with a
+    few DE moves; None when the pilot's importance weights say the proposal is unusable."""
+    import emcee
+
+    from . import proposal as _proposal
+
+    t = _proposal.from_mode(theta_mle, hessian)
+    if t is None:
+        return None
+    draws, log_weights, k = _proposal.pilot(t, log_prob, rng)
+    if not k <= _proposal.PARETO_K_LIMIT:
+        return None
+    moves = [(_proposal.independence_move(t), 0.8), (emcee.moves.DEMove(), 0.2)]
+    return moves, _proposal.resample(draws, log_weights, rng, walkers)
 
 
 def fit_bayes(
@@ -128,6 +148,13 @@ def fit_bayes(
     else:
         hess = lik.numerical_derivatives(spec, data, theta_mle)[2]
     start = _start_ball(rng, theta_mle, hess, n_walkers, lo_s, hi_s)
+    independent = None
+    if moves is None and not common_modulus:
+        independent = _independence_setup(theta_mle, hess, log_prob, rng, n_walkers)
+    first_check = 1000
+    if independent is not None:   # a proposal the pilot trusts: start spread like the posterior
+        moves, start = independent
+        burn, block, first_check = min(burn, INDEPENDENCE_BURN), min(block, 200), 200
     # Differential-evolution moves mix faster than the default stretch move on these
     # posteriors (demo data: R-hat <= 1.01 in about half the steps). Not DESnookerMove: in
     # emcee 3.1.6 its proposal is mis-normalised and the posterior comes out too narrow
@@ -146,7 +173,7 @@ def fit_bayes(
         state = sampler.run_mcmc(state, block)
         steps += block
         chain = sampler.get_chain()                      # (steps, walkers, P)
-        if steps >= 1000 or steps >= max_steps:
+        if steps >= first_check or steps >= max_steps:
             # drop the first fifth as further warm-up before judging
             kept = chain[steps // 5:]
             post = {nm: kept[:, :, i].T for i, nm in enumerate(names_params)}
@@ -169,6 +196,14 @@ def fit_bayes(
             "intervals may be unreliable: raise max_steps or check for a poorly identified population")
         _warnings.warn(notes[-1], FlawmixWarning, stacklevel=3)
     acceptance = float(np.mean(sampler.acceptance_fraction))
+    if independent is not None and acceptance < INDEPENDENCE_MIN_ACCEPTANCE:
+        # the proposal looked fine to the pilot but the chain rarely moves: DE moves instead
+        import emcee.moves as _moves
+
+        return fit_bayes(specimens, confidence, model=model, priors=priors, reference_prior=reference_prior,
+                         seed=seed, walkers=walkers, target_ess=target_ess, max_steps=max_steps, burn=burn,
+                         block=block, progress=progress, loo=loo, common_modulus=common_modulus,
+                         moves=_moves.DEMove(), geometries=geometries)
     moduli = np.exp(full[:, :k])
     scales = np.exp(full[:, k:2 * k] + centre)
     fractions = spec.fractions(full)
@@ -182,7 +217,7 @@ def fit_bayes(
         sub = chain[::thin]
         pw = spec.pointwise(data, expand(sub.reshape(-1, P))) - np.where(data.failed, centre, 0.0)
         pw = pw.reshape(sub.shape[0], n_walkers, -1).transpose(1, 0, 2)  # (chain, draw, N)
-        res = _arviz.loo(np.ascontiguousarray(pw))
+        res = diagnostics.psis_loo(pw)   # numpy; equal to arviz.loo (tests/test_bayes.py)
         bad = int(np.sum(res["pareto_k"] > 0.7))
         extras.update({"elpd_loo": res["elpd_loo"], "elpd_loo_se": res["se"], "pareto_k_bad": bad,
                        "elpd_loo_pointwise": None if res["pointwise"] is None else res["pointwise"].tolist()})

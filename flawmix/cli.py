@@ -59,7 +59,7 @@ def _add_fit_options(p: argparse.ArgumentParser) -> None:
     p.add_argument("--reference-prior", action="store_true",
                    help="Bayes: prior 1/(σθ m) instead of the weak defaults (improper; see README)")
     p.add_argument("--confidence", type=float, help="two-sided interval level (default 0.90)")
-    p.add_argument("--intervals", default="auto", choices=["auto", "profile", "wald", "pivotal", "bootstrap", "none"],
+    p.add_argument("--intervals", default="auto", choices=["auto", "calibrated", "profile", "wald", "pivotal", "bootstrap", "none"],
                    help="interval method (default auto: pivotal for one complete population, else profile)")
     p.add_argument("--positions", default="hazen", choices=["hazen", "mean-rank", "median-rank"],
                    help="plotting positions of the graphical comparison estimate (default hazen, (i-0.5)/N)")
@@ -160,10 +160,32 @@ def _bottom_line(args, study, specimens, result):
     return analyse(result, study, specimens, seed=seed)[0]
 
 
+def _reexamine_text(result) -> str:
+    """The labelled failures whose label is improbable at their strength, for the text output."""
+    from .origins import CHECK_THRESHOLD, specimens_to_reexamine
+
+    if len(result.populations) < 2:
+        return ""
+    flagged = specimens_to_reexamine(result)
+    if not len(flagged):
+        return ""
+    lines = [f"origin labels to re-examine (probability of the label at its strength, label withheld, below "
+             f"{CHECK_THRESHOLD:.0%}):"]
+    lines += [f"  {r['specimen']}: {r['strength']:.4g} {result.unit}, written '{r['origin']}', probability "
+              f"{r['label probability']:.2g}; most probable {r['most probable']}" for _, r in flagged.iterrows()]
+    return "\n".join(lines)
+
+
 def cmd_fit(args) -> int:
     study, specimens = _load(args)
     result = _fit_from_args(args, study, specimens)
-    return _emit(args, result, result, bottom=_bottom_line(args, study, specimens, result))
+    code = _emit(args, result, bottom=_bottom_line(args, study, specimens, result))
+    text = "" if args.json else _reexamine_text(result)
+    if text:
+        print()
+        print(text)
+    _print_warnings(result)
+    return code
 
 
 def cmd_compare(args) -> int:
@@ -302,7 +324,13 @@ def cmd_flaws(args) -> int:
     from .fracture import analyse_flaws
 
     study, specimens = _load(args)
-    analysis = analyse_flaws(specimens, study, stress=args.stress, tolerance=args.tolerance, size_unit=args.size_unit)
+    result = None
+    if not args.no_fit and len(specimens.populations) > 1:
+        from .fit import fit
+
+        result = fit(specimens, intervals="none")
+    analysis = analyse_flaws(specimens, study, stress=args.stress, tolerance=args.tolerance, size_unit=args.size_unit,
+                             fit=result)
     if args.json:
         print(json.dumps(analysis.to_dict(), indent=2, ensure_ascii=False))
     else:
@@ -332,7 +360,7 @@ def cmd_lots(args) -> int:
                                uncertain_origins=args.uncertain_origins or study.uncertain_origins or "count")
     seed = args.seed if args.seed is not None else (study.seed if study.seed is not None else 0)
     result = compare_lots(lots, study=study, method=args.method, confidence=args.confidence,
-                          probability=args.probability, seed=seed, progress=not args.quiet)
+                          probability=args.probability, seed=seed, progress=not args.quiet, calibrate=args.calibrate)
     if args.plot:
         from . import plots
         from .fonts import save
@@ -488,6 +516,8 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--stress", type=float, help="stress (in the strength unit) of the critical flaw sizes")
     p.add_argument("--tolerance", type=float, help="relative agreement with K_Ic (default the study's, else 0.25)")
     p.add_argument("--size-unit", help="unit of the flaw sizes shown (default as written in the table, else µm)")
+    p.add_argument("--no-fit", action="store_true",
+                   help="skip the fit whose origin-label checks are shown beside the fracture-mechanics ones")
     p.add_argument("--json", action="store_true", help="print the analysis as JSON (schema in README)")
     _add_quiet(p)
     p.set_defaults(func=cmd_flaws)
@@ -506,7 +536,10 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--probability", type=float,
                    help="failure probability at which stresses are also compared (default the study's [component] "
                         "target_probability, else 0.01)")
-    p.add_argument("--seed", type=int, help="seed of the sampler (default: the study file's, else 0)")
+    p.add_argument("--calibrate", type=int, default=0, metavar="N",
+                   help="parametric-bootstrap replicates per test for calibrated p-values (default 0: χ²; the χ² "
+                        "p-values are a little liberal at 30 specimens per lot, see README)")
+    p.add_argument("--seed", type=int, help="seed of the sampler and the calibration (default: the study file's, else 0)")
     p.add_argument("--plot", help="save the probability plots of the lots, population by population, to this PNG/SVG")
     p.add_argument("--force", action="store_true", help="replace an existing --plot file")
     p.add_argument("--json", action="store_true", help="print the comparison as JSON (schema in README)")
@@ -563,9 +596,10 @@ def main(argv=None) -> int:
     except KeyboardInterrupt:
         print("error: interrupted", file=sys.stderr)
         return 130
-    except BrokenPipeError:     # the reader of stdout went away (| head): stop quietly, as other tools do
-        os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
-        return 141
+    except BrokenPipeError:   # the reader went away (`flawmix fit ... | head`): stop quietly
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stdout.fileno())   # so the interpreter's final flush cannot fail again
+        return 0
     except Exception as exc:  # a bug, not a user error: one line, details on request
         if os.environ.get("FLAWMIX_DEBUG"):
             raise

@@ -20,7 +20,7 @@ from scipy import stats as _sstats
 from . import likelihood as lik
 from . import progress as _progress
 from .errors import FlawmixWarning
-from .evidence import loo_words
+from .evidence import loo_words, population_count_verdict, rejects
 from .result import FitResult, HypothesisTest, _num
 from .simulate import Design, replicate, simulate
 from .specimens import Specimens
@@ -104,6 +104,44 @@ def _bootstrap_partial_vs_concurrent(specimens: Specimens, concurrent: FitResult
     return (1 + exceed) / (1 + used), used
 
 
+SINGLE_TEST = "bootstrap likelihood ratio against the better of concurrent and exclusive populations"
+
+
+def single_population_statistic(data: lik.Data) -> np.ndarray:
+    """(R,) 2[max(ℓ_concurrent, ℓ_exclusive) − ℓ_single] for batched data sets: how much
+    better than one pooled population the better of the two main alternatives fits."""
+    from .exclusive_batch import fit_exclusive_batch
+    from .replicates import fit_concurrent_batch, pooled_loglik
+
+    _, _, concurrent, ok = fit_concurrent_batch(data)
+    best = np.maximum(np.where(ok, concurrent, -np.inf), fit_exclusive_batch(data))
+    return np.maximum(2.0 * (best - pooled_loglik(data)), 0.0)
+
+
+def bootstrap_single_test(specimens: Specimens, single: FitResult, replicates: int, seed=0) -> HypothesisTest:
+    """Test of one pooled population (one Weibull law, origin shares independent of strength)
+    against several populations, concurrent or exclusive.
+
+    Statistic: 2[max(ℓ_concurrent, ℓ_exclusive) − ℓ_single]. The exclusive alternative
+    reduces to the null on a boundary and both alternatives are refitted from the data, so
+    χ² does not hold; the null distribution is simulated from the fitted single population
+    with the observed design and refitted in batches (``replicates`` campaigns)."""
+    k = len(specimens.populations)
+    observed_data = lik.Data.from_specimens(specimens)
+    observed = float(single_population_statistic(
+        lik.Data(observed_data.y[None], observed_data.failed[None], observed_data.candidates[None]))[0])
+    sims = simulate(lik.Model("concurrent", k), single.moduli, single.characteristic_strengths, None,
+                    Design.like(specimens), replicates, np.random.default_rng(seed))
+    usable = np.all((sims.candidates & sims.failed[..., None]).sum(1) > 0, axis=1)
+    null = single_population_statistic(lik.Data(sims.y[usable], sims.failed[usable], sims.candidates[usable]))
+    p = float((1 + np.sum(null >= observed - 1e-9)) / (1 + null.size))
+    return HypothesisTest("single-vs-several", observed, k - 1, p,
+                          f"likelihood ratio, parametric bootstrap under the fitted single population "
+                          f"({null.size} replicates)",
+                          "Null: one pooled population (origin shares independent of strength); alternative: "
+                          "concurrent or exclusive populations, whichever fits better.")
+
+
 def compare(
     specimens: Specimens,
     *,
@@ -112,12 +150,19 @@ def compare(
     confidence: float = 0.90,
     seed: int = 0,
     target_ess: float = 1000.0,
+    single_test_replicates: int = 999,
 ) -> Comparison:
     """Fit every candidate model and say which the data support, and how strongly.
+
+    The verdict leads with the calibrated test of one pooled population
+    (:func:`bootstrap_single_test`): "one population is enough" exactly when it does not
+    reject at 5 %; the scores (AIC, BIC, PSIS-LOO) then rank the multi-population models.
 
     Args:
         bayes: also run the Bayesian fits and score by PSIS-LOO (slower, the default).
         bootstrap: parametric-bootstrap replicates for the partial-vs-concurrent test (0: skip).
+        single_test_replicates: replicates of the batched bootstrap behind the test of one
+            population (0: no test; the verdict then rests on the scores alone).
     """
     from .fit import fit
 
@@ -179,8 +224,12 @@ def compare(
         order = [n for n in order if not table.loc[n, "degenerate"]]
     preferred = order[0]
     tests: list[HypothesisTest] = []
+    single_test = None
     if k > 1:
         conc = fits["concurrent"]
+        if single_test_replicates:
+            single_test = bootstrap_single_test(specimens, fits["single"], single_test_replicates, seed)
+            tests.append(single_test)
         if conc.tests:
             t = conc.tests[0]
             tests.append(HypothesisTest("single-vs-concurrent", t.statistic, t.df, t.p_value, t.method,
@@ -199,6 +248,12 @@ def compare(
                                         "Null: every specimen carries every population."))
 
     verdict = _verdict(table, order, bayes, bayes_fits, specimens)
+    if single_test is not None:
+        several = rejects(single_test.p_value)
+        preferred = next(n for n in order if n != "single") if several else "single"
+        verdict = (population_count_verdict(single_test.p_value, SINGLE_TEST) + " "
+                   + (f"Among the models with several populations '{preferred}' ranks first. " if several else "")
+                   + "Scores: " + verdict)
     if excluded:
         verdict += (f" Not ranked: {', '.join(repr(n) for n in excluded)} (degenerate maximum likelihood; "
                     "run the comparison with Bayesian fits to score them by PSIS-LOO).")

@@ -18,15 +18,28 @@ from . import likelihood as lik
 MAX_ITERATIONS = 40
 
 
-def _separable_derivatives(data: lik.Data, populations: np.ndarray):
+def _separable_derivatives(data: lik.Data, populations: np.ndarray, modulus_rows: np.ndarray):
     """Derivatives for end points ``populations[e]`` of labelled data: that population's
-    failures alone, every other specimen suspended (k = 1)."""
+    failures alone, every other specimen suspended (k = 1); and a projection putting each
+    modulus end point's σθ at its closed-form conditional maximum (censored.py's
+    σθ(m) = (Σ_all σ^m / r)^(1/m)), so those rows are Newton on the profile itself."""
     own = (data.candidates[:, populations].T & data.failed).astype(float)      # (E, N)
     y = np.broadcast_to(data.y, own.shape)
+    statistics = lik.censored_statistics(y, own)
+    top = float(data.y.max())
+    x = data.y - top
+    log_failures = np.log(statistics[0][modulus_rows])
 
     def derivatives(theta):
-        return lik.censored_derivatives_batch(y, own, theta)
-    return derivatives
+        return lik.censored_derivatives_batch(y, own, theta, statistics)
+
+    def project(theta):
+        m = np.exp(theta[modulus_rows, 0])
+        with np.errstate(over="ignore", divide="ignore", invalid="ignore"):
+            total = np.exp(m[:, None] * x).sum(axis=1)
+            theta[modulus_rows, 1] = top + (np.log(total) - log_failures) / m
+        return theta
+    return derivatives, project
 
 
 def _joint_derivatives(data: lik.Data, rows: int):
@@ -57,17 +70,17 @@ def profile_end_points(data: lik.Data, theta_hat: np.ndarray, hessian: np.ndarra
     drop = np.tile(np.asarray(drops, dtype=float), indices.size)
     if separable:
         population = rows_index % k
-        derivatives = _separable_derivatives(data, population)
-        columns = np.stack([population, k + population], axis=1)         # (E, 2) into theta
         local_index = (rows_index >= k).astype(int)                       # 0: modulus, 1: scale
+        derivatives, project = _separable_derivatives(data, population, local_index == 0)
+        columns = np.stack([population, k + population], axis=1)         # (E, 2) into theta
     else:
-        derivatives = _joint_derivatives(data, rows_index.size)
+        derivatives, project = _joint_derivatives(data, rows_index.size), None
         columns = np.tile(np.arange(2 * k), (rows_index.size, 1))
         local_index = rows_index
     theta0 = theta_hat[columns]                                            # (E, P)
     hess0 = hessian[columns[:, :, None], columns[:, None, :]]              # (E, P, P)
     ll_hat, _, _ = derivatives(theta0)
-    theta, ok = _solve(derivatives, theta0, hess0, local_index, direction, ll_hat - drop, drop)
+    theta, ok = _solve(derivatives, theta0, hess0, local_index, direction, ll_hat - drop, drop, project)
     low, high = lower[columns], upper[columns]
     ok &= np.all((theta >= low) & (theta <= high), axis=1)
     ends.reshape(-1)[:] = theta[np.arange(theta.shape[0]), local_index]
@@ -89,11 +102,12 @@ def _quadratic_start(theta_hat, hess, index, direction, drop):
     return theta_hat + (direction * scale)[:, None] * column
 
 
-def _solve(derivatives, theta_hat, hess_hat, index, direction, target, drop):
+def _solve(derivatives, theta_hat, hess_hat, index, direction, target, drop, project=None):
     """Newton on F = [ll − target at row i, ∂ll/∂θ_l elsewhere] for every end point at once.
 
     Every row is evaluated each iteration (one call, no bookkeeping of subsets); a settled
-    row stays where it settled. Returns (theta (E, P), solved (E,) bool)."""
+    row stays where it settled; ``project(theta)``, if given, puts nuisance parameters at a
+    known conditional maximum after every step. Returns (theta (E, P), solved (E,) bool)."""
     E, P = theta_hat.shape
     rows = np.arange(E)
     theta = _quadratic_start(theta_hat, hess_hat, index, direction, drop)
@@ -103,6 +117,8 @@ def _solve(derivatives, theta_hat, hess_hat, index, direction, target, drop):
     done = np.zeros(E, bool)
     failed = ~np.all(np.isfinite(theta), axis=1)
     theta[failed] = theta_hat[failed]
+    if project is not None:
+        theta = project(theta)
     hess = hess_hat
     for _ in range(MAX_ITERATIONS):
         ll, grad, hess = derivatives(theta)
@@ -127,6 +143,8 @@ def _solve(derivatives, theta_hat, hess_hat, index, direction, target, drop):
         step *= np.where(toward > limit, limit / np.where(toward > 0, toward, 1.0), 1.0)[:, None]
         step[done | failed] = 0.0
         theta += step
+        if project is not None:
+            theta = project(theta)
     return theta, done & ~failed & _is_profile_maximum(hess, theta, index)
 
 
@@ -146,16 +164,33 @@ def _is_profile_maximum(hess, theta, index) -> np.ndarray:
     return np.all(eigen > 0, axis=1) & np.all(np.isfinite(theta), axis=1)
 
 
-def batched_profile_intervals(data: lik.Data, optimum, confidence: float, lower, upper, drops=None) -> dict:
-    """{full parameter index: (lower end, upper end)} for every parameter of a concurrent fit
-    (no tie, no geometries) whose two end points the batched solve settled; the caller finds
-    the rest with :func:`optimize.profile_interval`. ``drops`` as there."""
-    from .optimize import chi2_cutoff
+def batched_profile_intervals(data: lik.Data, optimum, confidence: float, lower, upper, drops=None,
+                              limits=None, problems: list | None = None) -> dict:
+    """{full parameter index: (lower end, upper end)} of a concurrent fit (no tie, no
+    geometries). End points the batched solve does not settle are found by
+    :func:`optimize.profile_interval` on that population's own two-parameter likelihood
+    when origins are labelled (the same profile, up to a constant); with unidentified origins
+    they are left out, for the caller's bracketing search on the whole likelihood.
+    ``drops`` as there; ``limits(index)`` gives each parameter's (low, high) search limits."""
+    from .optimize import Optimum, chi2_cutoff, profile_interval
 
     if drops is None:
         drops = (chi2_cutoff(confidence), chi2_cutoff(confidence))
-    P = optimum.theta.size
-    if P != 2 * data.k or not np.all(np.isfinite(optimum.hessian)):
+    P, k = optimum.theta.size, data.k
+    if P != 2 * k or not np.all(np.isfinite(optimum.hessian)):
         return {}
     ends, solved = profile_end_points(data, optimum.theta, optimum.hessian, np.arange(P), drops, lower, upper)
-    return {i: (float(ends[i, 0]), float(ends[i, 1])) for i in range(P) if solved[i].all()}
+    out = {i: (float(ends[i, 0]), float(ends[i, 1])) for i in range(P) if solved[i].all()}
+    if not data.certain:
+        return out
+    for i in sorted(set(range(P)) - set(out)):
+        j = i % k
+        own = lik.Data(data.y, data.failed & data.candidates[:, j], np.ones((data.y.size, 1), bool))
+        columns = [j, k + j]
+        theta = optimum.theta[columns]
+        ll, grad, hess = lik.concurrent_derivatives(own, theta)
+        alone = Optimum(theta, ll, grad, hess, 0, optimum.converged)
+        out[i] = profile_interval(lambda t: lik.concurrent_derivatives(own, t), alone, int(i >= k), confidence,
+                                  lower=lower[columns], upper=upper[columns], drops=drops,
+                                  limits=limits(i) if limits else (-np.inf, np.inf), problems=problems)
+    return out

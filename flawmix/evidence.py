@@ -65,3 +65,12 @@ def verdict_sentence(p_value: float, against: str) -> str:
     words = evidence_words(p_value)
     verdict = "rejected" if rejects(p_value) else "not rejected"
     return f"p = {p_value:.2g}: {words} against {against} ({verdict} at the {TEST_LEVEL * 100:g} % level)."
+
+
+def population_count_verdict(p_value: float, test: str) -> str:
+    """The first sentence of a model-comparison verdict, from the p-value of the calibrated
+    test of one pooled population: "One population is enough" exactly when that test does
+    not reject at the 5 % level, "Several flaw populations" otherwise."""
+    sentence = verdict_sentence(p_value, "one pooled population")
+    lead = "Several flaw populations" if rejects(p_value) else "One population is enough"
+    return f"{lead}: {sentence[:-1]}; test: {test}."

@@ -45,8 +45,11 @@ def fit(
             (every specimen carries all but one population, a fraction also carries that one;
             both ways round are fitted and the better reported).
         confidence: two-sided level of the intervals (0.90 gives 5 % / 95 % bounds).
-        intervals: ``auto`` (pivotal bounds for one complete population, profile likelihood
-            otherwise, Wald beyond 20 000 specimens), ``profile``, ``wald``, ``pivotal``,
+        intervals: ``auto`` (pivotal bounds for one complete population; for concurrent
+            populations up to 3000 specimens, profile likelihood with its cut-off calibrated by
+            a seeded parametric bootstrap (``calibrated``, see flawmix/calibration.py); χ²
+            profile likelihood otherwise, Wald beyond 20 000 specimens), ``calibrated``,
+            ``profile`` (χ² cut-off), ``wald``, ``pivotal``,
             ``bootstrap`` (parametric bootstrap percentiles; 1000 replicates unless
             ``bootstrap`` says otherwise), ``none``.
         bootstrap: number of parametric-bootstrap replicates (MLE, concurrent model): adds
@@ -81,7 +84,7 @@ def fit(
 
     use_bootstrap = intervals == "bootstrap" or bootstrap > 0
     result = fit_mle(specimens, confidence, model=model, intervals="none" if intervals == "bootstrap" else intervals,
-                     positions=positions, common_modulus=common_modulus, geometries=geometries)
+                     positions=positions, common_modulus=common_modulus, geometries=geometries, seed=seed)
     if use_bootstrap:
         boot = attach_bootstrap(result, bootstrap or 1000, seed=seed, executor=executor, progress=progress)
         if intervals != "bootstrap":   # keep the likelihood intervals, add the draws

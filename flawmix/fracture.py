@@ -21,7 +21,7 @@ TOLERANCE = 0.25
 LOCATIONS = ("surface", "interior", "edge", "corner")
 LOCATION_WORDS = {"surface": "surface", "interior": "interior", "volume": "interior", "internal": "interior",
                   "subsurface": "interior", "bulk": "interior", "edge": "edge", "chamfer": "edge", "corner": "corner"}
-COLUMN_NAMES = {"flaw_size": {"flaw_size", "flaw size", "flaw depth", "flaw_depth", "a"},
+COLUMN_NAMES = {"flaw_size": {"flaw_size", "flaw size", "flaw depth", "flaw_depth"},
                 "flaw_width": {"flaw_width", "flaw width", "2c"},
                 "location": {"location", "origin location", "origin_location"}}
 TOUGHNESS_UNIT = "MPa·√m"
@@ -34,7 +34,8 @@ HIGH_REASONS = ("the flaw was measured too large (the mirror or damage around it
                 "the inner span)", "rising crack resistance (R-curve) of the material",
                 "the origin is not this flaw (a mislabelled origin)")
 LOW_REASONS = ("slow crack growth enlarged the flaw before fracture (moisture, sustained load)",
-               "tensile residual stress at the origin", "the flaw was measured too small (tight cracks around it missed)",
+               "tensile residual stress at the origin",
+               "the flaw was measured too small (tight cracks around it missed)",
                "the origin is not this flaw: a larger one elsewhere caused the fracture (a mislabelled origin)",
                "locally lower toughness (a weak grain-boundary phase, an interface)")
 
@@ -269,9 +270,11 @@ class FlawAnalysis:
 
     @property
     def flagged(self) -> pd.DataFrame:
-        """Specimens whose implied toughness disagrees with K_Ic or whose location does not fit."""
+        """Specimens whose implied toughness disagrees with K_Ic, whose location does not fit, or
+        (when a fit was given) whose origin label is improbable at its strength."""
         s = self.specimens
-        return s[(s["consistent"] == False) | (s["location consistent"] == False)]   # noqa: E712 (None stays out)
+        return s[(s["consistent"] == False) | (s["location consistent"] == False)   # noqa: E712 (None stays out)
+                 | (s["label check"] == True)]   # noqa: E712
 
     def to_dict(self) -> dict[str, Any]:
         num = lambda x: None if x is None or not np.isfinite(x) else float(x)
@@ -281,6 +284,7 @@ class FlawAnalysis:
                  "consistent": None if r["consistent"] is None else bool(r["consistent"]),
                  "location": r["location"],
                  "location_consistent": None if r["location consistent"] is None else bool(r["location consistent"]),
+                 "label_check": None if r["label check"] is None else bool(r["label check"]),
                  "notes": list(r["notes"])}
                 for _, r in self.specimens.iterrows()]
         pops = [{"name": name, "crack_model": r["crack model"], "measured": int(r["measured"]),
@@ -315,7 +319,7 @@ class FlawAnalysis:
         for _, r in flagged.iterrows():
             k = "" if not np.isfinite(r["implied toughness"]) else f", implied K {r['implied toughness']:.3g}"
             lines.append(f"  {r['specimen']}: {fmt_stress(r['strength'])} {self.unit}, {r['population']}, flaw "
-                         f"{r['flaw size']:.3g}{k}. " + " ".join(r["notes"]))
+                         f"{r['flaw size']:.3g}{k}. " + "; ".join(r["notes"]))
         return "\n".join(lines)
 
 
@@ -391,15 +395,37 @@ def _population_rows(specimens, models, toughness, rows, sizes, widths, stresses
     return frame
 
 
+def _label_checks(rows: pd.DataFrame, fit) -> pd.DataFrame:
+    """Add the origin check of a fit (flawmix.origins): ``label check`` True where the written
+    label is improbable at that strength, with a note; the two routes to a mislabel side by side."""
+    from .origins import specimens_to_reexamine
+
+    rows = rows.copy()
+    rows["label check"] = np.array([None] * len(rows), dtype=object)
+    if fit is None:
+        return rows
+    flagged = specimens_to_reexamine(fit).set_index("specimen")
+    labelled = rows["population"].notna().to_numpy()
+    rows.loc[labelled, "label check"] = False
+    for i in np.flatnonzero(rows["specimen"].isin(flagged.index).to_numpy()):
+        f = flagged.loc[rows.at[i, "specimen"]]
+        rows.at[i, "label check"] = True
+        rows.at[i, "notes"] = rows.at[i, "notes"] + (
+            f"its origin label is improbable at this strength under the fitted model (p = "
+            f"{f['label probability']:.2g} with the label withheld; most probable: {f['most probable']})",)
+    return rows
+
+
 def analyse_flaws(specimens, study=None, *, toughness=None, stress: float | None = None,
-                  tolerance: float | None = None, size_unit: str | None = None) -> FlawAnalysis:
+                  tolerance: float | None = None, size_unit: str | None = None, fit=None) -> FlawAnalysis:
     """Fracture mechanics of the measured origins of ``specimens``.
 
     toughness: a :class:`Toughness`, a number (MPa·√m) or None for the study's ``toughness``;
     stress: the stress (specimens' unit) of the critical flaw sizes (also the study's
     [component] stress, when it gives one); tolerance: relative agreement band (default the
     study's, else 0.25); size_unit: unit of the sizes shown (default as written, else µm).
-    Crack models come from the study (see :func:`crack_models`)."""
+    Crack models come from the study (see :func:`crack_models`). fit: a FitResult of the same
+    specimens, whose origin checks are shown beside the fracture-mechanics ones."""
     where = str(study.path) if study is not None and study.path else "study file"
     if not has_flaw_sizes(specimens):
         raise FlawmixError(f"{specimens.source or 'the specimen table'}: no 'flaw_size' column with values; add one "
@@ -414,7 +440,7 @@ def analyse_flaws(specimens, study=None, *, toughness=None, stress: float | None
     widths, _ = _lengths(specimens, "flaw_width", written_unit)
     shown = length_unit(size_unit.replace("μ", "µ")) if size_unit else written_unit
     models = crack_models(specimens, study)
-    rows = _specimen_rows(specimens, models, toughness, sizes, widths, _locations(specimens), shown)
+    rows = _label_checks(_specimen_rows(specimens, models, toughness, sizes, widths, _locations(specimens), shown), fit)
     component = study.component_load().get("stress") if study is not None and study.component else None
     if stress is not None:
         stress = _positive(stress, "stress", "--stress")

@@ -23,10 +23,11 @@ def labelled_optimum(data: lik.Data, tie: np.ndarray | None, score_tol: float) -
     k = data.k
     own = (data.candidates & data.failed[:, None]).T.astype(float)        # (k, N)
     if tie is None:
-        u, v, at_bound = censored_weibull_mle(np.broadcast_to(data.y, own.shape), own)
-        if np.any(at_bound):
+        # one population at a time: the single-set iteration has far less bookkeeping
+        fits = [censored_weibull_mle(data.y, own[j]) for j in range(k)]
+        if any(bound for _, _, bound in fits):
             return None
-        theta = np.concatenate([u, v])
+        theta = np.array([u for u, _, _ in fits] + [v for _, v, _ in fits])
         jacobian = None
     else:
         if tie.shape != (2 * k, k + 1) or not np.array_equal(tie[:k, 0], np.ones(k)) \

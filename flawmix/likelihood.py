@@ -195,18 +195,19 @@ def concurrent_derivatives_batch(data: Data, theta: np.ndarray):
     return ll, g, hess
 
 
-def censored_derivatives_batch(log_strength: np.ndarray, failed: np.ndarray, theta: np.ndarray):
+def censored_derivatives_batch(log_strength: np.ndarray, failed: np.ndarray, theta: np.ndarray,
+                               statistics: tuple | None = None):
     """Log-likelihood (E,), gradient (E, 2), Hessian (E, 2, 2) of one population (k = 1) for E
     data sets (log_strength, failed: (E, N)) at theta (E, 2) = [u, v].
 
     The concurrent likelihood with k = 1, every failure certain: the certain-failure terms of
-    :func:`concurrent_derivatives` from sufficient statistics (failure count, Σ ln σ), batched.
-    With every origin identified the concurrent likelihood is the sum of these per population,
-    each population's failures alone with every other specimen suspended."""
+    :func:`concurrent_derivatives` from sufficient statistics (failure count, Σ ln σ, which
+    ``statistics`` may pass in from :func:`censored_statistics`), batched. With every origin
+    identified the concurrent likelihood is the sum of these per population, each
+    population's failures alone with every other specimen suspended."""
+    r, sum_y = censored_statistics(log_strength, failed) if statistics is None else statistics
     u, v = theta[:, 0], theta[:, 1]
     m = np.exp(u)
-    r = failed.sum(axis=1).astype(float)
-    sum_y = np.einsum("en,en->e", log_strength, failed)
     z = m[:, None] * (log_strength - v[:, None])
     with np.errstate(over="ignore"):
         H = np.exp(z)
@@ -216,10 +217,20 @@ def censored_derivatives_batch(log_strength: np.ndarray, failed: np.ndarray, the
     S2 = np.einsum("en,en->e", Hz, z)
     zc = m * (sum_y - r * v)
     ll = r * u - sum_y + zc - S0
-    grad = np.stack([r + zc - S1, m * (S0 - r)], axis=1)
-    uv = m * (S1 + S0 - r)
-    hess = np.stack([np.stack([zc - S2 - S1, uv], axis=1), np.stack([uv, -m * m * S0], axis=1)], axis=1)
+    grad = np.empty((u.size, 2))
+    grad[:, 0] = r + zc - S1
+    grad[:, 1] = m * (S0 - r)
+    hess = np.empty((u.size, 2, 2))
+    hess[:, 0, 0] = zc - S2 - S1
+    hess[:, 0, 1] = hess[:, 1, 0] = m * (S1 + S0 - r)
+    hess[:, 1, 1] = -m * m * S0
     return ll, grad, hess
+
+
+def censored_statistics(log_strength: np.ndarray, failed: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """(failure count (E,), Σ ln σ over the failures (E,)) of E one-population data sets."""
+    weight = np.asarray(failed, dtype=float)
+    return weight.sum(axis=1), np.einsum("en,en->e", log_strength, weight)
 
 
 def starting_responsibilities(data: Data, split: str = "by-count") -> np.ndarray:

@@ -324,11 +324,12 @@ def model_from_arrays(y, failed, candidates, lot, n_lots: int, size_offsets=None
 
 
 def simulated_tests(moduli, scales, n_per_lot: int, replicates: int, seed=0, unidentified: float = 0.0,
-                    progress: bool = False) -> dict:
+                    progress: bool = False, calibrate: int = 0, calibrate_keys=("same_population", "same_modulus")) -> dict:
     """Likelihood-ratio p-values of campaigns drawn from known lots (a seeded size and power
     study). moduli, scales: (L, k) truth. Returns ``p_same_population`` and
     ``p_same_modulus`` (R, k) (NaN where a population had no failure in some lot) and
-    ``dropped`` (R,) True for those replicates."""
+    ``dropped`` (R,) True for those replicates. calibrate: bootstrap replicates of
+    :func:`calibrate_tests` per test (0: χ² p-values)."""
     from . import progress as _progress
     from .simulate import Design, simulate
 
@@ -349,7 +350,11 @@ def simulated_tests(moduli, scales, n_per_lot: int, replicates: int, seed=0, uni
             if any(not (cand[(lot == l) & failed]).any(axis=0).all() for l in range(L)):
                 bar.step(r + 1)
                 continue
-            tests = likelihood_ratio_tests(model_from_arrays(y, failed, cand, lot, L))
+            model = model_from_arrays(y, failed, cand, lot, L)
+            free = maximise(model)
+            tests = likelihood_ratio_tests(model, free)
+            if calibrate:
+                calibrate_tests(model, free, tests, calibrate, seed=(seed, r), keys=calibrate_keys)
             p_pop[r] = [t["same_population"]["p_value"] for t in tests]
             p_mod[r] = [t["same_modulus"]["p_value"] for t in tests]
             bar.step(r + 1)
@@ -424,6 +429,54 @@ def likelihood_ratio_tests(model: LotModel, free=None) -> list[dict]:
     return out
 
 
+def calibrate_tests(model: LotModel, free, tests: list[dict], replicates: int, seed=0, progress: bool = False,
+                    keys=("same_population", "same_modulus")):
+    """Parametric-bootstrap p-values of every likelihood-ratio test: campaigns drawn from the
+    test's own null fit with each lot's observed design (survivors at their stresses, origins
+    unidentified as often), refitted free and tied; p = (1 + #{LR* ≥ LR}) / (1 + valid).
+    At small N the χ² reference is somewhat liberal (studies/lots_size_power.py measures it).
+    Adds ``p_value_chi2`` and ``calibration`` to each test named in ``keys`` and replaces
+    its ``p_value``."""
+    from . import progress as _progress
+    from .simulate import Design, simulate
+
+    if model.sized:
+        raise FlawmixError("calibrated tests for lots on several geometries are not available; drop --calibrate")
+    rng = np.random.default_rng(seed)
+    designs = []
+    for data in model.per_lot:
+        uncertain = data.failed & (data.candidates.sum(-1) > 1)
+        designs.append(Design(np.where(data.failed, np.inf, np.exp(data.y + model.centre)),
+                              float(uncertain.sum() / max(1, data.failed.sum())) if model.k > 1 else 0.0))
+    lot = np.concatenate([np.full(d.n, l) for l, d in enumerate(designs)])
+    with _progress.task("calibrating the tests (parametric bootstrap)", model.k * 2 * replicates, show=progress) as bar:
+        for j in range(model.k):
+            for n_test, (key, tie) in enumerate((("same_population", model.tie_same_population(j)),
+                                                 ("same_modulus", model.tie_same_modulus(j)))):
+                if key not in keys:
+                    continue
+                test = tests[j][key]
+                null = test["theta"]
+                batches = [simulate(lik.Model("concurrent", model.k), np.exp(null[model.columns(l)][:model.k]),
+                                    np.exp(null[model.columns(l)][model.k:] + model.centre), None, d, replicates, rng)
+                           for l, d in enumerate(designs)]
+                stats = []
+                for r in range(replicates):
+                    y, failed, cand = (np.concatenate([getattr(b, a)[r] for b in batches]) for a in
+                                       ("y", "failed", "candidates"))
+                    if all(cand[(lot == l) & failed].any(axis=0).all() for l in range(model.n_lots)):
+                        replica = model_from_arrays(y, failed, cand, lot, model.n_lots)
+                        top = maximise(replica)
+                        tied = maximise(replica, tie, _tied_starts(replica, top.theta, j))
+                        stats.append(max(0.0, 2.0 * (top.loglik - tied.loglik)))
+                    bar.step((2 * j + n_test) * replicates + r + 1)
+                stats = np.asarray(stats)
+                test["p_value_chi2"] = test["p_value"]
+                test["p_value"] = float((1 + np.sum(stats >= test["statistic"] - 1e-9)) / (1 + stats.size))
+                test["calibration"] = f"parametric bootstrap, {stats.size} of {replicates} replicates usable"
+    return tests
+
+
 # ---- intervals on changes: profile likelihood of a reparametrised model ---------------------
 
 def _change_derivatives(model: LotModel, population: int, lot_from: int, lot_to: int, a: float):
@@ -474,8 +527,11 @@ def change_interval(model: LotModel, free, population: int, lot_from: int, lot_t
 
 # ---- the comparison ---------------------------------------------------------------------
 
-def _check_lots(lots: Lots) -> None:
-    """Every population needs a failure in every lot for a finite estimate of its copy."""
+def _check_lots(lots: Lots) -> list[str]:
+    """Every population needs a failure in every lot for a finite estimate of its copy;
+    returns the doubts about weakly identified copies, each naming its lot."""
+    from .specimens import check_estimable
+
     sp = lots.specimens
     for l, lot in enumerate(lots.names):
         possible = sp.candidates[(lots.lot == l) & sp.failed].sum(axis=0)
@@ -484,6 +540,13 @@ def _check_lots(lots: Lots) -> None:
                 raise FlawmixError(f"{sp.source or 'specimens'}: population '{name}' has no failure in lot '{lot}', "
                                    "so its strength there has no finite estimate (the change may have removed it); "
                                    "compare the other populations by leaving it out of the grouping, or merge it")
+    notes = []
+    for l, lot in enumerate(lots.names):
+        from dataclasses import replace
+
+        part = replace(lots.subset(l), warnings=())
+        notes += [f"lot '{lot}': {w}" for w in check_estimable(part)]
+    return notes
 
 
 def _per_lot_estimates(model: LotModel, free, lots: Lots, confidence: float, problems: list) -> list[list[dict]]:
@@ -517,7 +580,9 @@ def _overall_strength(moduli: np.ndarray, scales: np.ndarray, probability: float
     from scipy.optimize import brentq
 
     target = -math.log1p(-probability)
-    f = lambda x: math.log(np.sum(np.exp(moduli * (x - np.log(scales))))) - math.log(target)
+    from scipy.special import logsumexp
+
+    f = lambda x: float(logsumexp(moduli * (x - np.log(scales)))) - math.log(target)
     lo, hi = float(np.min(np.log(scales))) - 50.0, float(np.max(np.log(scales))) + 5.0
     return math.exp(brentq(f, lo, hi, xtol=1e-12))
 
@@ -551,7 +616,7 @@ def _posterior_changes(lots: Lots, confidence: float, priors, seed) -> tuple[lis
 
 def compare_lots(lots, populations=None, *, study=None, method: str = "mle", confidence: float | None = None,
                  probability: float | None = None, seed: int | None = 0, progress: bool = False,
-                 order: Sequence[str] | None = None, **read_options) -> "LotComparison":
+                 order: Sequence[str] | None = None, calibrate: int = 0, **read_options) -> "LotComparison":
     """Compare lots population by population: did a process change move each flaw population?
 
     lots: a :class:`Lots` (from :func:`read_lots`) or what :func:`read_lots` accepts.
@@ -562,6 +627,8 @@ def compare_lots(lots, populations=None, *, study=None, method: str = "mle", con
     study's [component] target_probability, else 1 %).
     order: the lot names in order (the first is the baseline; default the study's lots,
     else their order of appearance).
+    calibrate: parametric-bootstrap replicates per test (0: the χ² reference); the χ²
+    p-values are a little liberal at small N (studies/lots_size_power.py).
     """
     from . import progress as _progress
 
@@ -574,16 +641,20 @@ def compare_lots(lots, populations=None, *, study=None, method: str = "mle", con
     probability = probability or load.get("target_probability", DEFAULT_PROBABILITY)
     if not 0 < probability < 1:
         raise FlawmixError(f"probability {probability} must lie strictly between 0 and 1 (for example 0.01)")
-    _check_lots(lots)
+    doubts = _check_lots(lots)
     geometries = _lot_geometries(lots, study)
     if method == "bayes" and geometries:
         raise FlawmixError("--method bayes for lots tested on different geometries is not available; use mle")
     model = lot_model(lots, geometries)
-    problems: list[str] = []
+    problems: list[str] = list(doubts)
     with _progress.task("comparing lots", 3 + model.k, show=progress) as bar:
         free = maximise(model)
         bar.step(1, "free fit")
         tests = likelihood_ratio_tests(model, free)
+        if calibrate:
+            if calibrate < 19:
+                raise FlawmixError(f"calibrate needs at least 19 replicates (got {calibrate}); 199 or more is usual")
+            calibrate_tests(model, free, tests, calibrate, seed, progress)
         bar.step(2, "likelihood-ratio tests")
         estimates = _per_lot_estimates(model, free, lots, confidence, problems)
         bar.step(3, "per-lot intervals")
@@ -665,7 +736,9 @@ class LotPopulation:
         return rejects(self.same_population["p_value"])
 
     def to_dict(self) -> dict:
-        test = lambda t: {"statistic": _num(t["statistic"]), "df": int(t["df"]), "p_value": _num(t["p_value"])}
+        test = lambda t: {"statistic": _num(t["statistic"]), "df": int(t["df"]), "p_value": _num(t["p_value"]),
+                          **({"p_value_chi2": _num(t["p_value_chi2"]), "calibration": t["calibration"]}
+                             if "calibration" in t else {})}
         by_lot = [{"lot": r["lot"], "n_failures": int(r["n_failures"]), "modulus": _num(r["modulus"]),
                    "characteristic_strength": _num(r["characteristic_strength"]),
                    "modulus_interval": [_num(x) for x in r["modulus_interval"]],
@@ -810,8 +883,12 @@ def population_verdict(name: str, change: dict, same: dict, modulus: dict, lots:
         if rejects(modulus["p_value"]):
             text += f"; the modulus changed too ({evidence_words(modulus['p_value'])}, p = {modulus['p_value']:.2g})"
     if change.get("probability_stronger") is not None:
-        text += f"; posterior probability it got stronger {change['probability_stronger']:.3f}"
+        text += f", posterior probability that σθ rose {_probability_words(change['probability_stronger'])}"
     return text
+
+
+def _probability_words(p: float) -> str:
+    return "> 0.999" if p > 0.999 else "< 0.001" if p < 0.001 else f"{p:.3f}"
 
 
 def _overall_sentence(overall: dict, where: str, unit: str) -> str:
@@ -953,7 +1030,24 @@ def format_comparison(c: LotComparison) -> str:
                      f"{fmt.interval(*ch['ratio_interval'], kind=lambda x: fmt.significant(x, 3))}; stress at "
                      f"{100 * st['probability']:g} % (alone): {st['ratio']:.3f} "
                      f"{fmt.interval(*st['ratio_interval'], kind=lambda x: fmt.significant(x, 3))}"
-                     + (f"; P(stronger) {ch['probability_stronger']:.3f}" if "probability_stronger" in ch else ""))
+                     + (f"; P(σθ rose) {_probability_words(ch['probability_stronger'])}"
+                        if "probability_stronger" in ch else ""))
         lines.append("")
     lines.append("Verdict: " + c.verdict)
     return "\n".join(lines)
+
+
+def comparison_for_report(specimens, study=None, confidence: float = 0.90, seed=0):
+    """The lot comparison of a specimen table that has a ``lot`` column with two or more lots
+    (None otherwise; the error's text when the lots cannot be compared)."""
+    text = _lot_column(specimens)
+    if text is None or len(set(text)) < 2:
+        return None
+    order = list(study.lots) if study is not None and study.lots else None
+    try:
+        lots = read_lots(specimens, lots=order, geometries={n: s["geometry"] for n, s in study.lots.items()
+                                                            if s.get("geometry")} or None
+                         if study is not None and study.lots else None)
+        return compare_lots(lots, study=study, confidence=confidence, seed=seed)
+    except FlawmixError as exc:
+        return f"The lots could not be compared: {exc}"

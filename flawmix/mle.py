@@ -18,12 +18,14 @@ from .endpoints import batched_profile_intervals
 from .errors import FlawmixError, FlawmixWarning
 from .labelled import labelled_optimum
 from .evidence import verdict_sentence
+from .calibration import CALIBRATED_METHOD
 from .optimize import newton_maximise, profile_interval, wald_interval
 from .pivots import pivot_quantiles
 from .positions import adjusted_ranks, plotting_positions, position_rule, strength_order
 from .result import FitResult, HypothesisTest, PopulationEstimate
 from .specimens import Specimens, check_estimable
 
+NEWTON_STARTS = 3                # Newton runs from this many EM starts besides by-count
 PROFILE_MAX_SPECIMENS = 20_000   # above this, profile and Wald intervals agree to print precision
 
 
@@ -33,12 +35,13 @@ def _centred_data(specimens: Specimens) -> tuple[lik.Data, float]:
     return lik.Data(y - centre, specimens.failed, specimens.candidates), centre
 
 
-def _em_start(data: lik.Data, split: str, max_iter: int | None = None) -> np.ndarray:
-    """A starting point from a few EM steps; only uncertain failures are re-split."""
+def _em_start(data: lik.Data, split, max_iter: int | None = None) -> np.ndarray:
+    """A starting point from a few EM steps; only uncertain failures are re-split.
+    ``split``: a rule of :func:`likelihood.starting_responsibilities` or an (N, k) array."""
     k = data.k
     F = data.failed
     n_cand = data.candidates.sum(axis=1)
-    resp = lik.starting_responsibilities(data, split)
+    resp = lik.starting_responsibilities(data, split) if isinstance(split, str) else np.array(split, dtype=float)
     if max_iter is None:  # EM only has to get close; Newton finishes, so keep big data cheap
         max_iter = 3 if data.y.size <= 10_000 else 2
     uncertain = np.flatnonzero(F & (n_cand > 1))
@@ -57,6 +60,46 @@ def _em_start(data: lik.Data, split: str, max_iter: int | None = None) -> np.nda
     return np.concatenate([u, v])
 
 
+def _population_orders(k: int) -> list[tuple[int, ...]]:
+    """Which population takes the weakest block of uncertain failures, which the next, ...:
+    every order for k <= 3, the k rotations and their reverses for larger k."""
+    if k <= 3:
+        from itertools import permutations
+
+        return list(permutations(range(k)))
+    turns = [tuple(np.roll(np.arange(k), r)) for r in range(k)]
+    return turns + [t[::-1] for t in turns]
+
+
+def starting_splits(data: lik.Data) -> list:
+    """Starting splits of the uncertain failures for the EM start.
+
+    By certain counts and equally (both symmetric in the populations when every origin is
+    unidentified: Newton then stays on the symmetric ridge where all populations are equal, a
+    saddle), plus asymmetric splits by strength quantiles: the uncertain failures, in
+    strength order, are cut into k blocks and block b goes to population order[b] (when it is
+    a candidate; otherwise the failure keeps its by-count split)."""
+    splits: list = ["by-count"]
+    if data.certain:
+        return splits
+    splits.append("equal")
+    if data.y.size > 10_000:
+        return splits[:1]   # a sharply peaked likelihood: one start (see _maximise)
+    k = data.k
+    base = lik.starting_responsibilities(data, "by-count")
+    uncertain = np.flatnonzero(data.failed & (data.candidates.sum(axis=1) > 1))
+    ranked = uncertain[np.argsort(data.y[uncertain], kind="stable")]
+    blocks = np.array_split(ranked, k)
+    for order in _population_orders(k):
+        resp = base.copy()
+        for block, j in zip(blocks, order):
+            allowed = block[data.candidates[block, j]]
+            resp[allowed] = 0.0
+            resp[allowed, j] = 1.0
+        splits.append(resp)
+    return splits
+
+
 def _bounds(k: int) -> tuple[np.ndarray, np.ndarray]:
     lower = np.concatenate([np.full(k, lik.LOG_MODULUS_MIN), np.full(k, -np.inf)])
     upper = np.concatenate([np.full(k, lik.LOG_MODULUS_MAX), np.full(k, np.inf)])
@@ -72,13 +115,18 @@ def _maximise(data: lik.Data, tie=None, start=None):
         closed = labelled_optimum(data, tie, score_tol)
         if closed is not None:
             return closed, deriv, lower, upper
-    # Unidentified origins can make the likelihood multi-modal: try two EM splits.
-    # (One start for big data: its likelihood is too sharply peaked for a second mode to matter.)
-    two = not data.certain and data.y.size <= 10_000
-    starts = [start] if start is not None else (["by-count", "equal"] if two else ["by-count"])
+    # Unidentified origins can make the likelihood multi-modal: several EM starts; Newton
+    # from the by-count start and the NEWTON_STARTS best of the others, the best maximum kept.
+    if start is not None:
+        points = [np.array(start, dtype=float)]
+    else:
+        points = [_em_start(data, split) for split in starting_splits(data)]
+        if len(points) > NEWTON_STARTS + 1:
+            values = [lik.concurrent_loglik(data, p[:k], p[k:]) for p in points[1:]]
+            ranked = np.argsort(values)[::-1][:NEWTON_STARTS]
+            points = [points[0]] + [points[1 + i] for i in ranked]
     best = None
-    for split in starts:
-        theta0 = _em_start(data, split) if isinstance(split, str) else np.array(split, dtype=float)
+    for theta0 in points:
         if tie is not None:  # common modulus: start all moduli at their mean
             theta0[:k] = np.mean(theta0[:k])
         opt = newton_maximise(deriv, theta0, tie=tie, lower=lower, upper=upper, score_tol=score_tol)
@@ -114,13 +162,19 @@ def _regression(specimens: Specimens, j: int, rule: str, single=None, order=None
     return weibull_regression(np.log(specimens.strength[idx]), p)
 
 
-def _interval_method(intervals: str, specimens: Specimens, complete_single: bool) -> str:
-    if intervals not in ("auto", "profile", "wald", "pivotal", "none"):
-        raise FlawmixError(f"unknown interval method '{intervals}'; use auto, profile, wald, pivotal or none")
+def _interval_method(intervals: str, specimens: Specimens, complete_single: bool, calibratable: bool) -> str:
+    from .calibration import MAX_SPECIMENS as CALIBRATION_MAX_SPECIMENS
+
+    if intervals not in ("auto", "calibrated", "profile", "wald", "pivotal", "none"):
+        raise FlawmixError(f"unknown interval method '{intervals}'; use auto, calibrated, profile, wald, pivotal or none")
     method = intervals
     if method == "auto":
-        method = "pivotal" if complete_single else (
-            "profile" if specimens.n_specimens <= PROFILE_MAX_SPECIMENS else "wald")
+        n = specimens.n_specimens
+        method = "pivotal" if complete_single else "calibrated" if calibratable and n <= CALIBRATION_MAX_SPECIMENS \
+            else "profile" if n <= PROFILE_MAX_SPECIMENS else "wald"
+    if method == "calibrated" and not calibratable:
+        raise FlawmixError("bootstrap-calibrated intervals exist for the concurrent model with free moduli "
+                           "(one geometry); use intervals='profile'")
     if method == "pivotal" and not complete_single:
         raise FlawmixError("pivotal bounds exist only for one population without survivors; "
                            "use intervals='profile'")
@@ -223,12 +277,14 @@ def fit_mle(
     common_modulus: bool = False,
     tests: bool = True,
     geometries=None,
+    seed=0,
 ) -> FitResult:
     """Maximum-likelihood fit of every population under the named model.
 
     geometries: {name: Geometry or study-file table} for tables with a ``geometry`` column:
     each specimen's hazard then scales with its own effective size, and the fit reports the
-    material scale σ0 and σθ of every geometry.
+    material scale σ0 and σθ of every geometry. seed: the bootstrap that calibrates the
+    default intervals (flawmix/calibration.py).
     """
     if not 0 < confidence < 1:
         raise FlawmixError(f"confidence {confidence} must lie strictly between 0 and 1 (for example 0.90)")
@@ -274,7 +330,14 @@ def fit_mle(
     expected = resp.sum(axis=0)
 
     complete_single = k == 1 and specimens.n_survived == 0
-    method = _interval_method(intervals, specimens, complete_single)
+    method = _interval_method(intervals, specimens, complete_single,
+                              calibratable=model == "concurrent" and not common_modulus and sized is None)
+    calibration = None
+    if method == "calibrated":
+        from .calibration import calibrate
+
+        calibration = calibrate(specimens, np.exp(u), np.exp(v + centre), confidence, seed=seed)
+        method = "profile" if calibration is None else "calibrated"
     m_hat = np.exp(u)
     unbiased = [None] * k
     if complete_single:
@@ -285,14 +348,17 @@ def fit_mle(
     problems: list[str] = []
     batched = {}
     if method == "profile" and tie is None and spec.name == "concurrent" and spec.size_offsets is None:
-        batched = batched_profile_intervals(data, opt, confidence, lower, upper)   # all ends in one solve
+        batched = batched_profile_intervals(   # all end points in one solve (endpoints.py)
+            data, opt, confidence, lower, upper, problems=problems,
+            limits=lambda i: (lik.LOG_MODULUS_MIN, lik.LOG_MODULUS_MAX) if i < k else (-np.inf, np.inf))
 
     def interval(index, limits=(-np.inf, np.inf)):
         if index in batched:
             return batched[index]
-        if method == "profile":
+        if method in ("profile", "calibrated"):
+            drops = None if calibration is None else tuple(calibration.drops[index])
             return profile_interval(deriv, opt, index, confidence, tie=tie, lower=lower, upper=upper, limits=limits,
-                                    problems=problems)
+                                    drops=drops, problems=problems)
         return wald_interval(opt, index, confidence, tie)
 
     for j in range(k):
@@ -310,7 +376,7 @@ def fit_mle(
             c, d = interval(k + j)
             mod_int.append((float(np.exp(a)), float(np.exp(b))))
             str_int.append((float(np.exp(c + centre)), float(np.exp(d + centre))))
-    if method in ("profile", "wald") and spec.n_extra == 1:
+    if method in ("profile", "wald") and spec.n_extra == 1:   # (calibration is concurrent only)
         lo_t, hi_t = interval(2 * k, (-30.0, 30.0))
         sig = lambda t: float(1.0 / (1.0 + np.exp(-t)))
         if spec.name == "exclusive":   # α is the log-odds of population 0 against population 1
@@ -332,7 +398,8 @@ def fit_mle(
             name=pop.name, kind=pop.kind, n_failures=int(certain[j]), n_possible=int(possible[j]),
             expected_failures=float(expected[j]), modulus=float(m_hat[j]),
             characteristic_strength=float(np.exp(v[j] + centre)),
-            modulus_interval=mod_int[j], strength_interval=str_int[j], interval_method=method,
+            modulus_interval=mod_int[j], strength_interval=str_int[j],
+            interval_method=CALIBRATED_METHOD if method == "calibrated" else method,
             modulus_unbiased=unbiased[j], regression_modulus=rm, regression_strength=rs,
             at_bound=bool(at_bound[j]), fraction=float(fractions[j]), fraction_interval=frac_int[j],
         ))
@@ -377,7 +444,8 @@ def fit_mle(
         checksum=specimens.checksum,
         specimens=specimens,
         extras={"iterations": opt.iterations, **_sized_extras(sized, specimens, m_hat, np.exp(v + centre)),
-                **_covariance(opt, tie, centre, spec, data)},
+                **_covariance(opt, tie, centre, spec, data),
+                **({} if calibration is None else {"calibration": calibration})},
         partial_population=partial_name,
     )
 

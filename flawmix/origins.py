@@ -96,6 +96,10 @@ def _row_probabilities(fit: _Fitted, rows: np.ndarray, thetas: np.ndarray) -> np
     """(R, k) probabilities of every population for specimen rows[r] at its own thetas[r],
     all populations candidates (the label withheld)."""
     everything = np.ones((rows.size, fit.spec.k), dtype=bool)
+    if fit.spec.name == "concurrent" and fit.spec.size_offsets is None:   # the hazard shares, one call
+        k = fit.spec.k
+        one_each = lik.Data(fit.data.y[rows][:, None], np.ones((rows.size, 1), bool), everything[:, None, :])
+        return lik.responsibilities(one_each, thetas[:, :k], thetas[:, k:2 * k])[:, 0, :]
     if fit.spec.size_offsets is None:
         return candidate_probabilities(fit.spec, _own_rows(fit.data, rows, everything), thetas)[:, 0, :]
     # sized models index geometry per specimen of one data set: one row at a time
@@ -132,29 +136,36 @@ def refit_without_label(fit: _Fitted, i: int) -> np.ndarray:
     return opt.theta
 
 
-def one_step_without_label(fit: _Fitted, rows: np.ndarray, step: float = 1e-5) -> np.ndarray:
+def one_step_without_label(fit: _Fitted, rows: np.ndarray, step: float = 1e-5, general: bool = False) -> np.ndarray:
     """(R, n_params) one Newton step from the full fit towards the fit with each row's label
     withheld: θ̂ + Cov·∇[ℓ_i(all candidates) − ℓ_i(label)] (the full fit's observed information
-    stands in for the refit's; the gradient by central differences of the specimen's terms)."""
+    stands in for the refit's). The gradient: analytic for the plain concurrent model (the
+    derivatives of DEVELOPERS.md, "Likelihood derivatives"), else central differences of the
+    specimen's likelihood terms; ``general=True`` forces the latter (tests compare the two)."""
     if fit.covariance is None:
         raise FlawmixError("the one-step approximation needs finite standard errors; use method='refit'")
-    everything = np.ones((rows.size, fit.spec.k), dtype=bool)
+    if fit.spec.name == "concurrent" and fit.spec.size_offsets is None and not general:
+        k = fit.spec.k
+        u, v = fit.theta[:k], fit.theta[k:]
+        m = np.exp(u)
+        y = fit.data.y[rows]
+        everything = lik.Data(y, np.ones(rows.size, bool), np.ones((rows.size, k), bool))
+        share = lik.responsibilities(everything, u, v)                     # π_ij, all candidates
+        own = fit.data.candidates[rows].astype(float)                      # the written label
+        z = m * (y[:, None] - v)
+        grad = np.concatenate([(share - own) * (1 + z), m * (own - share)], axis=1)
+        return fit.theta + np.einsum("np,qp->nq", grad, np.asarray(fit.covariance))   # BLAS is slow on tall-thin
     P = fit.theta.size
     grad = np.empty((rows.size, P))
+    withheld = _withheld_all(fit.data)
     for p in range(P):
         shift = np.zeros(P)
         shift[p] = step
-        change = []
-        for t in (fit.theta + shift, fit.theta - shift):
-            if fit.spec.size_offsets is None:
-                a = fit.spec.pointwise(_own_rows(fit.data, rows, everything), t)[:, 0]
-                b = fit.spec.pointwise(_own_rows(fit.data, rows, fit.data.candidates[rows]), t)[:, 0]
-            else:
-                a = fit.spec.pointwise(_withheld_all(fit.data), t)[rows]
-                b = fit.spec.pointwise(fit.data, t)[rows]
-            change.append(a - b)
+        # the survival terms are common to both and cancel in the difference
+        change = [fit.spec.pointwise(withheld, t)[rows] - fit.spec.pointwise(fit.data, t)[rows]
+                  for t in (fit.theta + shift, fit.theta - shift)]
         grad[:, p] = (change[0] - change[1]) / (2 * step)
-    return fit.theta + grad @ np.asarray(fit.covariance).T
+    return fit.theta + np.einsum("np,qp->nq", grad, np.asarray(fit.covariance))
 
 
 def _withheld_all(data: lik.Data) -> lik.Data:
@@ -185,7 +196,8 @@ def label_probabilities(result, method: str = "auto") -> tuple[np.ndarray, np.nd
         from .progress import task
 
         thetas = np.empty((rows.size, fit.theta.size))
-        with task("refitting with each origin label withheld", rows.size, show=None if rows.size > 100 else False) as bar:
+        quiet = None if rows.size > 100 else False      # a hundred refits take well under a second
+        with task("refitting with each origin label withheld", rows.size, show=quiet) as bar:
             for n, i in enumerate(rows):
                 thetas[n] = refit_without_label(fit, int(i))
                 bar.step(n + 1)

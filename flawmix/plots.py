@@ -181,7 +181,7 @@ def probability_plot(result, ax=None, view: str = "populations", band: bool = Tr
         _crossover_marks(ax, dominance_changes(result.moduli, result.characteristic_strengths, names, lo, hi),
                          result.unit, lo, hi)
 
-    ringed = pos[pos["specimen"].isin(list(mark or ())) & pos["probability"].notna()]
+    ringed = pos[pos["specimen"].isin(list(mark) if mark is not None else []) & pos["probability"].notna()]
     if len(ringed):
         ax.scatter(ringed["strength"], _weibit(ringed["probability"]), s=170, facecolors="none", zorder=5,
                    edgecolors="#b0202a", linewidths=1.6, label=f"origin label to re-examine, {len(ringed)}")

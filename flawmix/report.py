@@ -234,6 +234,10 @@ def analyse(specimens, *, study=None, method="mle", compare_models=True, bayes=T
             with progress.task("comparing models"):
                 comparison = compare(specimens, bayes=bayes, bootstrap=boundary_replicates, seed=seed, confidence=conf)
     a = Analysis(specimens, study, mle, main, conf, seed, comparison)
+    from .lots import comparison_for_report
+
+    a.extra["lots"] = comparison_for_report(specimens, study, conf, seed)   # None without a lot column
+    a.extra["flaws"] = _flaws(specimens, study, mle)
     drawn = with_draws(main, seed) if main.model.startswith("concurrent") else main   # intervals on predictions
     a.bottom, _ = bottom_line_of(drawn, study, specimens, comparison, seed=seed)
     comp = study.component_object() if study else None
@@ -253,6 +257,19 @@ def analyse(specimens, *, study=None, method="mle", compare_models=True, bayes=T
                                       standard_scenarios(names),
                                       component_name=a.component[0] if a.component else "component")
     return a
+
+
+def _flaws(specimens, study, result):
+    """The flaw-size analysis when the table has flaw sizes: a FlawAnalysis, or the one-line
+    reason it cannot be made (shown in its section), or None without flaw sizes."""
+    from .fracture import analyse_flaws, has_flaw_sizes
+
+    if not has_flaw_sizes(specimens):
+        return None
+    try:
+        return analyse_flaws(specimens, study, fit=result if len(result.populations) > 1 else None)
+    except FlawmixError as exc:
+        return str(exc)
 
 
 def _default_stresses(result, coupon, body, name):
@@ -335,6 +352,10 @@ def _results(a: Analysis) -> dict:
         results["prediction"] = a.prediction.to_dict()
     if a.bottom is not None:
         results["bottom_line"] = a.bottom.to_dict()
+    if a.extra.get("lots") is not None and not isinstance(a.extra["lots"], str):
+        results["lots"] = a.extra["lots"].to_dict()
+    if a.extra.get("flaws") is not None and not isinstance(a.extra["flaws"], str):
+        results["flaws"] = a.extra["flaws"].to_dict()
     results["software"] = _versions()
     results["seed"] = a.seed
     return results
@@ -377,11 +398,14 @@ def section_probability_plot(a: Analysis, figs, tables) -> list[str]:
     from . import plots
 
     main = a.main
+    marked = _origins_to_reexamine(a)["specimen"].tolist()
+    ringed = (" Ringed: origin labels to re-examine (improbable at their strength, see 'Fracture origins')."
+              if marked else "")
     return ["<h2>2. Probability plot</h2>",
-            figs.add("probability_plot", plots.probability_plot(main).figure,
+            figs.add("probability_plot", plots.probability_plot(main, mark=marked).figure,
                      "Every specimen by fracture origin. Each population's failures sit at Johnson adjusted ranks "
                      "(other failures and survivors suspended); each dashed line is that population's own fit, "
-                     "with its own band."),
+                     "with its own band." + ringed),
             figs.add("probability_plot_all", plots.probability_plot(main, view="all").figure,
                      "All failures ranked together, with the combined model curve and its band: the kink of "
                      "competing populations; dotted lines mark where the dominating population changes.")]
@@ -431,6 +455,29 @@ def section_comparison(a: Analysis, figs, tables) -> list[str]:
     for t in c.tests:
         out.append(f"<p>Test {_esc(t.name)}: statistic {t.statistic:.2f}, p = {fmt.p_value(t.p_value)} "
                    f"({_esc(t.method)}). {_esc(t.meaning)}</p>")
+    return out
+
+
+def section_lots(a: Analysis, figs, tables) -> list[str]:
+    from . import plots
+
+    c = a.extra.get("lots")
+    if c is None:
+        return []
+    out = ["<h2>Lots compared population by population</h2>"]
+    if isinstance(c, str):   # the lots could not be compared: say why
+        return out + [f'<p class="caution">{_esc(c)}</p>']
+    out.append(f"<p>The table's lots ({_esc(', '.join(c.lots))}; baseline '{_esc(c.lots[0])}') fitted jointly, each "
+               "population with its own modulus and characteristic strength in every lot; likelihood-ratio tests of "
+               "'the same in every lot' and of 'the same modulus' for each population, the other populations free "
+               "per lot.</p>")
+    c.summary().to_csv(tables / "lots.csv")
+    out.append(_table(c.summary(), kinds={"failures": "count", "p same population": "p_value",
+                                          "p same modulus": "p_value"}))
+    out.append(f'<p class="verdict">{_esc(c.verdict)}</p>')
+    out.append(figs.add("lots_probability_plots", plots.lot_probability_plot(c),
+                        "Each population's failures lot by lot, at adjusted ranks within the lot, with each lot's own "
+                        "fitted line; every panel on the same axes."))
     return out
 
 
@@ -530,6 +577,76 @@ def section_component(a: Analysis, figs, tables) -> list[str]:
     return out
 
 
+def _origins_to_reexamine(a: Analysis) -> pd.DataFrame:
+    from .origins import specimens_to_reexamine
+
+    return specimens_to_reexamine(a.main)
+
+
+def section_origins(a: Analysis, figs, tables) -> list[str]:
+    names = [p.name for p in a.main.populations]
+    if len(names) < 2:
+        return []
+    frame = a.main.origin_probabilities()
+    frame.to_csv(tables / "origin_probabilities.csv", index=False)
+    threshold = frame.attrs["threshold"]
+    out = ["<h2>Fracture origins: which population, and which labels to re-examine</h2>",
+           "<p>For each failure whose origin is unidentified or ambiguous, the probability that each candidate "
+           "population caused it, given its strength and the fitted model. For each labelled failure, the "
+           "probability of its label when the model is refitted with that label withheld; labels below "
+           f"{threshold:.0%} are listed as specimens to re-examine (a mislabelled fracture surface, or a rare "
+           "but genuine origin). All rows: tables/origin_probabilities.csv.</p>"]
+    flagged = _origins_to_reexamine(a)
+    out.append("<h3>Specimens to re-examine</h3>")
+    if len(flagged):
+        out.append(_table(flagged, index=False, kinds={"strength": "stress", "label probability": "probability",
+                                                         **{n: "probability" for n in names}}))
+    else:
+        out.append(f"<p>None: every written origin has probability {threshold:.0%} or more at its strength.</p>")
+    open_rows = frame[frame["reading"].isin(["unidentified", "ambiguous"])]
+    if len(open_rows):
+        shown = open_rows[["specimen", "strength", "origin", "reading", *names,
+                           *[c for c in frame.columns if c.endswith((" low", " high"))]]]
+        out.append("<h3>Unidentified and ambiguous origins</h3>"
+                   + _table(shown, index=False, kinds={"strength": "stress", **{c: "probability" for c in shown.columns
+                                                                                if c in names or " low" in c
+                                                                                or " high" in c}}))
+    return out
+
+
+def section_flaws(a: Analysis, figs, tables) -> list[str]:
+    from . import plots
+
+    flaws = a.extra.get("flaws")
+    if flaws is None:
+        return []
+    out = ["<h2>Flaw sizes and fracture toughness</h2>"]
+    if isinstance(flaws, str):
+        return out + [f"<p>The table has flaw sizes, but they cannot be compared with fracture mechanics: "
+                      f"{_esc(flaws)}</p>"]
+    t = flaws.toughness
+    out.append(f"<p>Each measured origin implies a toughness K = Y·σ·√a (Y of its population's crack model, σ the "
+               f"strength, a the flaw size). It agrees with K_Ic = {t.value:.3g} MPa·√m"
+               + (f" [{t.interval[0]:.3g}, {t.interval[1]:.3g}]" if t.interval else "")
+               + f" when within ±{t.tolerance:.0%}. Flaw sizes in {_esc(flaws.size_unit)}.</p>")
+    pops = flaws.populations.drop(columns=["critical at stress"])
+    out.append(_table(pops, kinds={"measured": "count"}))
+    if flaws.component_stress:
+        out.append(f"<p>The critical flaw size at the component's analysed stress ({flaws.component_stress:g} "
+                   f"{_esc(flaws.unit)}) is the largest flaw of each type the process may leave.</p>")
+    flaws.specimens.drop(columns=["notes"]).to_csv(tables / "flaw_sizes.csv", index=False)
+    flagged = flaws.flagged
+    if len(flagged):
+        shown = flagged[["specimen", "strength", "population", "flaw size", "location", "implied toughness"]].copy()
+        shown["why"] = ["; ".join(n) for n in flagged["notes"]]
+        out.append("<h3>Specimens to look at again</h3>" + _table(shown, index=False))
+    out.append(figs.add("flaw_sizes", plots.flaw_size_plot(flaws).figure,
+                        "Strength against measured flaw size on logarithmic axes; each line is σ = K_Ic/(Y·√a) for "
+                        "that population's crack model (dotted: the agreement band); ringed: specimens to look at "
+                        "again."))
+    return out
+
+
 def section_methods(a: Analysis, figs, tables) -> list[str]:
     out = ["<h2>Methods and references</h2><ul>",
            "<li>Competing-risk censored maximum likelihood: each failure contributes the hazard of its "
@@ -563,8 +680,8 @@ def section_cautions(a: Analysis, figs, tables) -> list[str]:
 
 
 SECTIONS = [section_bottom_line, section_data, section_probability_plot, section_estimates, section_comparison,
-            section_limits, section_component, section_methods, section_software, section_warnings,
-            section_cautions]
+            section_lots, section_limits, section_component, section_origins, section_flaws, section_methods,
+            section_software, section_warnings, section_cautions]
 
 
 def _json_default(x):

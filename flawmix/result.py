@@ -264,7 +264,8 @@ class FitResult:
 
     def failure_probability(self, stress, approximate: bool = False) -> pd.DataFrame:
         """Failure probability of a test specimen at each stress: estimate and, when the fit
-        carries draws (Bayes, bootstrap), the interval at the result's confidence;
+        carries draws (Bayes, bootstrap) or was calibrated (the default intervals of a
+        concurrent MLE: bootstrap-t on ln H(σ)), the interval at the result's confidence;
         ``approximate=True`` lets a plain MLE use its normal-approximation draws."""
         s = np.atleast_1d(np.asarray(stress, dtype=float))
         point = 1.0 - dist.model_sf_rows(self.model, s, *self._point_params(), self._partial_index)[0]
@@ -274,7 +275,19 @@ class FitResult:
             samples = 1.0 - dist.model_sf_rows(self.model, s, d.moduli, d.scales, d.fractions, self._partial_index)
             if self.method == "bayes":
                 point = np.median(samples, axis=0)
+        elif "calibration" in self.extras and "covariance" in self.extras:   # bootstrap-t from the refits that calibrated the fit
+            return self._calibrated_frame(point, s, "failure_probability_interval", f"stress ({self.unit})")
         return _summary_frame(samples, point, self.confidence, pd.Index(s), f"stress ({self.unit})")
+
+    def _calibrated_frame(self, point, values, name: str, index_name: str) -> pd.DataFrame:
+        from . import calibration
+
+        bounds = [getattr(calibration, name)(self.extras["calibration"], self.extras["covariance"], float(x),
+                                             self.confidence) for x in values]
+        frame = pd.DataFrame({"estimate": point, "low": [b[0] for b in bounds], "high": [b[1] for b in bounds]},
+                             index=pd.Index(values))
+        frame.index.name = index_name
+        return frame
 
     def population_failure_probability(self, name: str, stress, approximate: bool = False) -> pd.DataFrame:
         """Failure probability of a test specimen from population ``name`` acting alone, at
@@ -304,6 +317,8 @@ class FitResult:
                                 for p in ps], axis=1)
             if self.method == "bayes":
                 point = np.median(samples, axis=0)
+        elif "calibration" in self.extras and "covariance" in self.extras:
+            return self._calibrated_frame(point, ps, "strength_interval", "failure probability")
         return _summary_frame(samples, point, self.confidence, pd.Index(ps), "failure probability")
 
     def failure_share_intervals(self, stress) -> pd.DataFrame:

@@ -2,6 +2,7 @@
 closed forms (labelled.py) and the batched profile end points (endpoints.py) give what the
 general Newton / bracketing path and an independent scipy.stats computation give."""
 import numpy as np
+import pandas as pd
 import pytest
 from scipy import optimize, stats
 
@@ -115,8 +116,14 @@ def test_unbounded_end_is_left_to_the_bracketing_search():
     frame.loc[:, "origin"] = "a"
     frame.loc[np.argsort(frame.strength.to_numpy())[-2:], "origin"] = "b"
     sp, data, _, opt, _, lower, upper = _fit_parts(frame)
-    batched = batched_profile_intervals(data, opt, 0.90, lower, upper)
-    assert 1 not in batched                 # not solved by Newton ...
+    _, solved = profile_end_points(data, opt.theta, opt.hessian, np.arange(4), (CUT_90, CUT_90), lower, upper)
+    assert not solved[1, 1]                 # not settled by Newton ...
+    batched = batched_profile_intervals(data, opt, 0.90, lower, upper,
+                                        limits=lambda i: (lik.LOG_MODULUS_MIN, lik.LOG_MODULUS_MAX))
+    assert batched[1][1] == np.inf          # ... so searched on b's own likelihood, up to the bound
+    general = profile_interval(lambda t: lik.concurrent_derivatives(data, t), opt, 1, 0.90, lower=lower,
+                               upper=upper, limits=(lik.LOG_MODULUS_MIN, lik.LOG_MODULUS_MAX))
+    np.testing.assert_allclose(batched[1], general, rtol=0, atol=2e-9)   # the whole likelihood's search
     result = fm.fit(sp)
     assert any("search bound" in line for line in result.warnings)
     assert result.populations[1].modulus_interval[1] == np.inf    # ... and unbounded in the fit
@@ -167,3 +174,17 @@ def test_chi2_cutoff_equals_scipy_stats():
     for confidence in (0.5, 0.8, 0.9, 0.95, 0.99):
         for df in (1, 2, 3):
             assert chi2_cutoff(confidence, df) == 0.5 * stats.chi2.ppf(confidence, df)
+
+
+def test_many_small_labelled_populations_equal_the_general_path():
+    # 12 populations of 3 failures each: every end point, batched or searched population by
+    # population, equals the bracketing search on the whole 24-parameter likelihood
+    rng = np.random.default_rng(8)
+    labels = np.repeat([f"L{i:02d}" for i in range(12)], 3)
+    frame = pd.DataFrame({"strength": 400 * rng.weibull(8, labels.size), "origin": labels})
+    _, data, _, opt, deriv, lower, upper = _fit_parts(frame)
+    limits = lambda i: (lik.LOG_MODULUS_MIN, lik.LOG_MODULUS_MAX) if i < 12 else (-np.inf, np.inf)
+    batched = batched_profile_intervals(data, opt, 0.90, lower, upper, limits=limits)
+    for i in (0, 5, 11, 12, 17, 23):
+        general = profile_interval(deriv, opt, i, 0.90, lower=lower, upper=upper, limits=limits(i))
+        np.testing.assert_allclose(batched[i], general, rtol=0, atol=2e-9)

@@ -163,6 +163,10 @@ def test_example_flags_its_planted_specimens():
     a = analyse_flaws(sp, study, stress=400.0)
     assert {"SN-03", "SN-06", "SN-08", "SN-27"} <= set(a.flagged["specimen"])
     assert a.component_stress == 300.0
+    # the planted swapped label is caught by both routes: location and the origin check of a fit
+    both = analyse_flaws(sp, study, fit=fm.fit(sp, intervals="none")).specimens.set_index("specimen")
+    assert both.loc["SN-06", "label check"] is True and both.loc["SN-06", "location consistent"] is False
+    assert both["label check"].sum() == 1
     pores = a.populations.loc["pores"]
     assert pores["critical at component stress"] == pytest.approx(
         (5.5 / (2 / math.sqrt(math.pi) * 300.0))**2 * 1e6, rel=1e-9)   # a_c = [K_Ic/(Yσ)]², µm
@@ -201,3 +205,18 @@ def test_cli_flaws_json_and_error(tmp_path, capsys):
     bare.write_text("strength,origin\n400,pore\n", encoding="utf-8")
     assert main(["flaws", str(bare), "--group", "pores:volume=pore"]) == 2
     assert "no 'flaw_size' column" in capsys.readouterr().err
+
+
+def test_report_has_the_origin_and_flaw_sections(tmp_path):
+    from flawmix.report import write_report
+
+    study = read_study(EXAMPLE / "study.toml")
+    sp = fm.read_specimens(study.specimens, study.populations, study.unit)
+    out = write_report(sp, tmp_path / "report", study=study, compare_models=False, bayes=False)
+    page = (out / "report.html").read_text(encoding="utf-8")
+    assert "Specimens to re-examine" in page and "Flaw sizes and fracture toughness" in page
+    results = json.loads((out / "results.json").read_text(encoding="utf-8"))
+    assert [c["specimen"] for c in results["origin_checks"]] == ["SN-06"]   # the planted swapped label
+    assert {r["specimen"] for r in results["flaws"]["specimens"] if r["consistent"] is False} == {"SN-03", "SN-27"}
+    assert (out / "figures" / "flaw_sizes.png").stat().st_size > 5000
+    assert (out / "tables" / "origin_probabilities.csv").exists()

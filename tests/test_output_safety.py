@@ -208,14 +208,13 @@ def test_no_command_modifies_any_corpus_input(tmp_path):
 
 
 def test_output_into_a_closed_pipe_stops_quietly():
-    """`flawmix fit ... | head -1`: the reader goes away; no internal error, no traceback,
-    exit 141 (128 + SIGPIPE, as shell tools report it)."""
+    """`flawmix fit ... | head -1`: the reader goes away; no internal error, no traceback."""
     process = subprocess.Popen([sys.executable, "-m", "flawmix", "fit", str(TABLE), "--intervals", "none", "--quiet"],
                                stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
                                env={**os.environ, "PYTHONPATH": str(ROOT)})
     process.stdout.close()
     errors = process.stderr.read()
-    assert process.wait(timeout=60) == 141
+    assert process.wait(timeout=60) == 0
     assert "internal error" not in errors and "Traceback" not in errors and "Exception ignored" not in errors
 
 

@@ -166,3 +166,26 @@ def test_report_for_specimens_of_two_geometries(tmp_path):
     write_report(sp, tmp_path / "out", study=study)
     page = (tmp_path / "out" / "report.html").read_text()
     assert "Likelihood contours of population &#x27;pore&#x27;" in page
+
+
+def test_report_shows_the_lot_comparison_when_the_table_has_lots(tmp_path):
+    """The invented two-lot example (examples/lots/): a lot section with the verdict and the
+    lot figure, and the same comparison in results.json; the demo (no lot column) has none."""
+    from flawmix.lots import compare_lots
+
+    folder = Path(__file__).resolve().parents[1] / "examples" / "lots"
+    study = read_study(folder / "wheel_change.toml")
+    sp = fm.read_specimens(study.specimens, study.populations, study.unit)
+    write_report(sp, tmp_path / "out", study=study, compare_models=False, bayes=False, boundary_replicates=0)
+    page = (tmp_path / "out" / "report.html").read_text()
+    assert "Lots compared population by population" in page
+    assert (tmp_path / "out" / "figures" / "lots_probability_plots.png").stat().st_size > 5000
+    results = json.loads((tmp_path / "out" / "results.json").read_text())
+    assert results["lots"]["verdict"] == compare_lots(None, study=study).verdict
+    import html
+
+    assert html.escape(results["lots"]["verdict"].split(";")[0], quote=True) in page
+
+
+def test_demo_report_has_no_lot_section(demo_report):
+    assert "Lots compared" not in (demo_report / "report.html").read_text()

@@ -94,7 +94,7 @@ def test_bootstrap_adds_intervals_and_is_seeded():
     a = fm.fit(sp, bootstrap=300, seed=5)
     b = fm.fit(sp, bootstrap=300, seed=5)
     np.testing.assert_array_equal(a.draws.moduli, b.draws.moduli)
-    assert a.populations[0].interval_method == "profile"            # likelihood intervals kept
+    assert a.populations[0].interval_method.startswith("profile")   # likelihood intervals kept
     pf = a.failure_probability([380.0])
     assert pf["low"].iloc[0] < pf["estimate"].iloc[0] < pf["high"].iloc[0]
     c = fm.fit(sp, intervals="bootstrap", bootstrap=300, seed=5)

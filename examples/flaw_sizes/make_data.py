@@ -4,8 +4,9 @@ size. Pores act as embedded penny cracks, machining damage as semi-elliptical su
 in bending; K_Ic = 5.5 MPa·√m. A few records are planted: a mis-measured flaw, a machining
 origin found in the interior, a swapped origin label, one slow-crack-growth origin.
 
-Run:  python examples/flaw_sizes/make_data.py
+Run:  python examples/flaw_sizes/make_data.py [OUTPUT.csv]     (default: bars.csv beside this file)
 """
+import sys
 from pathlib import Path
 
 import numpy as np
@@ -41,4 +42,4 @@ frame = pd.DataFrame({"specimen": [f"SN-{i + 1:02d}" for i in range(n)], "streng
                       "origin": origin, "flaw_size (µm)": size.round(1), "flaw_width (µm)": width.round(1),
                       "location": location})
 frame.loc[[4, 17, 30], ["origin", "flaw_size (µm)", "flaw_width (µm)", "location"]] = ["?", np.nan, np.nan, ""]
-frame.to_csv(Path(__file__).with_name("bars.csv"), index=False)
+frame.to_csv(Path(sys.argv[1]) if len(sys.argv) > 1 else Path(__file__).with_name("bars.csv"), index=False)
