@@ -349,9 +349,10 @@ def fit_mle(
 
     problems: list[str] = []
     batched = {}
-    if method == "profile" and tie is None and spec.name == "concurrent" and spec.size_offsets is None:
+    if method in ("profile", "calibrated") and tie is None and spec.name == "concurrent" and spec.size_offsets is None:
         batched = batched_profile_intervals(   # all end points in one solve (endpoints.py)
             data, opt, confidence, lower, upper, problems=problems,
+            drops=None if calibration is None else calibration.drops,
             limits=lambda i: (lik.LOG_MODULUS_MIN, lik.LOG_MODULUS_MAX) if i < k else (-np.inf, np.inf))
 
     def interval(index, limits=(-np.inf, np.inf)):

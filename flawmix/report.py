@@ -170,6 +170,11 @@ def _check_place(out: Path) -> None:
                 raise FlawmixError(f"{out}: '{parent}' is a file, not a folder; choose another --out")
             if not os.access(parent, os.W_OK):
                 raise FlawmixError(f"{out}: no permission to write in '{parent}'; choose a writable --out")
+            try:    # the permission bits do not tell all (root, read-only mounts, /proc): try it, before the long part
+                os.rmdir(tempfile.mkdtemp(prefix=".flawmix-probe.", dir=parent))
+            except OSError as exc:
+                raise FlawmixError(f"{out}: cannot create a folder in '{parent}' ({exc.strerror or exc}); "
+                                   "choose a writable --out") from None
             return
 
 
