@@ -148,13 +148,16 @@ def fit_bayes(
         theta_mle = np.concatenate([theta_mle[:1], theta_mle[k:2 * k]])
     n_walkers = walkers or max(32, 4 * P)
     rng = np.random.default_rng(seed)
-    if common_modulus:   # a rough scale is enough for the starting ball
-        hess = -np.eye(P) * max(specimens.n_failed, 1) * 4.0
+    if common_modulus:   # the Hessian in [u, v_1..v_k]: J^T H J with J the tie (one u for all)
+        tie = np.zeros((2 * k, P))
+        tie[:k, 0] = 1.0
+        tie[k:, 1:] = np.eye(k)
+        hess = tie.T @ lik.numerical_derivatives(spec, data, expand(theta_mle))[2] @ tie
     else:
         hess = lik.numerical_derivatives(spec, data, theta_mle)[2]
     start = _start_ball(rng, theta_mle, hess, n_walkers, lo_s, hi_s)
     independent = None
-    if moves is None and not common_modulus:
+    if moves is None:
         independent = _independence_setup(theta_mle, hess, log_prob, rng, n_walkers)
     first_check = 1000
     if independent is not None:   # a proposal the pilot trusts: start spread like the posterior
