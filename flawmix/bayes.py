@@ -16,7 +16,7 @@ from . import diagnostics
 from . import likelihood as lik
 from .errors import FlawmixError, FlawmixWarning
 from .mle import _centred_data, fit_mle
-from .priors import build_priors
+from .priors import build_priors, prior_dominance_notes
 from .result import Draws, FitResult, PopulationEstimate
 from .specimens import Specimens
 
@@ -197,6 +197,9 @@ def fit_bayes(
     flat = chain.transpose(1, 0, 2).reshape(-1, P)           # walker-major: (walkers*steps, P)
     full = expand(flat)
     notes = list(mle.warnings)
+    for line in prior_dominance_notes(prior, names, full, confidence):
+        notes.append(line)
+        _warnings.warn(line, FlawmixWarning, stacklevel=3)
     if diag is None or diag["r_hat_max"] > R_HAT_TARGET or diag["ess_bulk_min"] < target_ess:
         notes.append(
             f"the sampler did not reach R-hat <= {R_HAT_TARGET} and bulk ESS >= {target_ess:.0f} within "

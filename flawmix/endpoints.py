@@ -81,8 +81,9 @@ def profile_end_points(data: lik.Data, theta_hat: np.ndarray, hessian: np.ndarra
         local_index = rows_index
     theta0 = theta_hat[columns]                                            # (E, P)
     hess0 = hessian[columns[:, :, None], columns[:, None, :]]              # (E, P, P)
-    ll_hat, _, _ = derivatives(theta0)
-    theta, ok = _solve(derivatives, theta0, hess0, local_index, direction, ll_hat - drop, drop, project)
+    with np.errstate(all="ignore"):   # rows that overflow far from the maximum end as not solved
+        ll_hat, _, _ = derivatives(theta0)
+        theta, ok = _solve(derivatives, theta0, hess0, local_index, direction, ll_hat - drop, drop, project)
     low, high = lower[columns], upper[columns]
     ok &= np.all((theta >= low) & (theta <= high), axis=1)
     ends.reshape(-1)[:] = theta[np.arange(theta.shape[0]), local_index]
@@ -175,9 +176,11 @@ def _is_profile_maximum(hess, theta, index) -> np.ndarray:
     keep = np.ones((E, P), bool)
     keep[np.arange(E), index] = False
     others = -hess[keep[:, :, None] & keep[:, None, :]].reshape(E, P - 1, P - 1)
-    with np.errstate(invalid="ignore"):
-        eigen = np.linalg.eigvalsh(others)
-    return np.all(eigen > 0, axis=1) & np.all(np.isfinite(theta), axis=1)
+    finite = np.all(np.isfinite(theta), axis=1) & np.all(np.isfinite(others), axis=(1, 2))
+    positive = np.zeros(E, bool)
+    if finite.any():   # a row that overflowed has no eigenvalues (eigvalsh would raise)
+        positive[finite] = np.all(np.linalg.eigvalsh(others[finite]) > 0, axis=1)
+    return positive
 
 
 def batched_profile_intervals(data: lik.Data, optimum, confidence: float, lower, upper, drops=None,

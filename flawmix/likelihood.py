@@ -137,12 +137,12 @@ def concurrent_derivatives(data: Data, theta: np.ndarray) -> tuple[float, np.nda
     sp = _split(data)
     # cumulative hazard over all specimens, (k, N) layout for contiguous reductions
     z = m[:, None] * (data.y[None, :] - v[:, None])
-    with np.errstate(over="ignore"):
+    with np.errstate(over="ignore", invalid="ignore"):   # far from the data: inf, caught by the caller
         H = np.exp(z)
-    S0 = H.sum(axis=1)
-    Hz = H * z
-    S1 = Hz.sum(axis=1)
-    S2 = np.einsum("ij,ij->i", Hz, z)
+        S0 = H.sum(axis=1)
+        Hz = H * z
+        S1 = Hz.sum(axis=1)
+        S2 = np.einsum("ij,ij->i", Hz, z)
 
     # certain failures: ln h = u − y + z with z = m (y − v)
     r = sp.count

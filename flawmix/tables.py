@@ -139,18 +139,27 @@ def _read_text(path: Path, data: bytes, checksum: str) -> RawTable:
     header = [("" if pd.isna(c) else str(c)).strip() for c in cells.iloc[0]]
     cells = cells.iloc[1:].reset_index(drop=True)
     cells.columns = range(len(header))
-    # blank: every cell missing (empty cells read as missing), or one cell of white space only
-    blank = np.ones(len(cells), dtype=bool)
-    for j in range(1, len(header)):
-        blank &= cells[j].isna().to_numpy()
-    first = cells[0].to_numpy(dtype=object)
-    for i in np.flatnonzero(blank):
-        blank[i] = not isinstance(first[i], str) or not first[i].strip()
+    blank = _blank_records(cells, len(header))
     fields, lines = _layout(body, delimiter, leading_lines, records=len(cells) + 1)
     if np.any((fields[1:] != len(header)) & ~blank):
         _raise_field_count(path, fields, lines, delimiter, blank=np.concatenate([[False], blank]))
     return RawTable(header, cells, str(path), "line", checksum, delimiter, blank, lines=lines[1:],
                     header_line=int(lines[0]))
+
+
+def _blank_records(cells: pd.DataFrame, columns: int) -> np.ndarray:
+    """(R,) True for records whose cells are all missing or white space (',,,' and ' , , ' too).
+    Column by column, only the records still blank are looked at: one pass over a million rows
+    whose first cell is filled."""
+    blank = np.ones(len(cells), dtype=bool)
+    for j in range(columns):
+        rows = np.flatnonzero(blank)
+        if not rows.size:
+            break
+        values = cells[j].to_numpy(dtype=object)[rows]
+        filled = np.fromiter((isinstance(v, str) and bool(v.strip()) for v in values), dtype=bool, count=rows.size)
+        blank[rows[filled]] = False
+    return blank
 
 
 def _skip_leading_blank_lines(data: bytes) -> tuple[int, int]:

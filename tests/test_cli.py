@@ -68,3 +68,17 @@ def test_demo_writes_its_report_and_refuses_to_overwrite(tmp_path):
         assert (out / name).exists()
     again = run("demo", "--out", str(out))
     assert again.returncode == 2 and "--force" in again.stderr
+
+
+def test_output_into_a_closed_pipe_ends_quietly():
+    """`flawmix fit ... | head -1`: the reader leaves early; no "internal error", status 0."""
+    from flawmix.cli import demo_paths
+
+    table, _ = demo_paths()
+    reader = subprocess.Popen([sys.executable, "-c", "import sys; sys.stdin.readline()"], stdin=subprocess.PIPE)
+    writer = subprocess.run([sys.executable, "-m", "flawmix", "fit", str(table), "--quiet"], stdout=reader.stdin,
+                            stderr=subprocess.PIPE, text=True)
+    reader.stdin.close()
+    reader.wait()
+    assert writer.returncode == 0, writer.stderr
+    assert "internal error" not in writer.stderr and "Traceback" not in writer.stderr
