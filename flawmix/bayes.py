@@ -160,6 +160,7 @@ def fit_bayes(
     if moves is None:
         independent = _independence_setup(theta_mle, hess, log_prob, rng, n_walkers)
     first_check = 1000
+    asked = (burn, block)
     if independent is not None:   # a proposal the pilot trusts: start spread like the posterior
         moves, start = independent
         burn, block, first_check = min(burn, INDEPENDENCE_BURN), min(block, 200), 200
@@ -192,6 +193,15 @@ def fit_bayes(
                 break
         block = min(max(block, steps // 2), 5000)
     bar.close(f"{burn + steps} steps")
+    acceptance = float(np.mean(sampler.acceptance_fraction))
+    if independent is not None and acceptance < INDEPENDENCE_MIN_ACCEPTANCE:
+        # the proposal looked fine to the pilot but the chain rarely moves: DE moves instead
+        import emcee.moves as _moves
+
+        return fit_bayes(specimens, confidence, model=model, priors=priors, reference_prior=reference_prior,
+                         seed=seed, walkers=walkers, target_ess=target_ess, max_steps=max_steps, burn=asked[0],
+                         block=asked[1], progress=progress, loo=loo, common_modulus=common_modulus,
+                         moves=_moves.DEMove(), geometries=geometries, mle=mle)
     chain = sampler.get_chain()[steps // 5:]
     kept_steps = chain.shape[0]
     flat = chain.transpose(1, 0, 2).reshape(-1, P)           # walker-major: (walkers*steps, P)
@@ -207,14 +217,6 @@ def fit_bayes(
             "intervals may be unreliable: raise max_steps or check for a poorly identified population")
         _warnings.warn(notes[-1], FlawmixWarning, stacklevel=3)
     acceptance = float(np.mean(sampler.acceptance_fraction))
-    if independent is not None and acceptance < INDEPENDENCE_MIN_ACCEPTANCE:
-        # the proposal looked fine to the pilot but the chain rarely moves: DE moves instead
-        import emcee.moves as _moves
-
-        return fit_bayes(specimens, confidence, model=model, priors=priors, reference_prior=reference_prior,
-                         seed=seed, walkers=walkers, target_ess=target_ess, max_steps=max_steps, burn=burn,
-                         block=block, progress=progress, loo=loo, common_modulus=common_modulus,
-                         moves=_moves.DEMove(), geometries=geometries, mle=mle)
     moduli = np.exp(full[:, :k])
     scales = np.exp(full[:, k:2 * k] + centre)
     fractions = spec.fractions(full)
