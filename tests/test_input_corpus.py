@@ -75,6 +75,10 @@ CASES = [
     Case("layout/extra_columns.csv", **ok(**BASE)),
     Case("layout/strength_only.csv", **ok(n=5, failed=5, survived=0, unidentified=5, ambiguous=0, populations=("all",))),
     Case("layout/geometry_column.csv", **ok(**BASE)),
+    # a spreadsheet's first line 'sep=;' names the delimiter; the header is line 2
+    Case("layout/sep_line.csv", **ok(n=3, failed=3, survived=0, unidentified=0, ambiguous=0,
+                                     populations=("inclusion", "pore"))),
+    Case("layout/sep_line_bad_row.csv", **err("line 5", "column 'strength'", "'3x98' is not a number")),
     Case("layout/cr_only.csv", **ok(n=3, failed=3, survived=0, unidentified=3, ambiguous=0, populations=("all",))),
     Case("layout/cr_only_bad_row.csv", **err("line 4", "column 'strength'", "'4x30' is not a number")),
     # ---- units in the header, --unit ----------------------------------------------------
@@ -90,6 +94,10 @@ CASES = [
                                                         populations=("inclusion", "pore"))),
     Case("header/nbsp_before_unit.csv", **ok(n=3, failed=3, survived=0, unidentified=0, ambiguous=0,
                                              populations=("inclusion", "pore"))),
+    Case("header/title_lines_above.csv", **err("line 4: this line looks like the header", "line 1 comes first",
+                                               "delete the 3 line(s) above the header")),
+    Case("excel/title_rows.xlsx", **err("[sheet 'Bars'], row 4: this row looks like the header", "row 1 comes first",
+                                        "delete the 3 row(s) above the header")),
     Case("header/unit_unknown.csv", **err("line 1 (the header)", "column 'strength (N)'", "unknown stress unit 'N'",
                                           "give --unit")),
     Case("layout/comma.csv", ("--unit", "N/mm2"), **err("unknown stress unit 'N/mm2'", "use one of Pa, kPa, MPa"),
