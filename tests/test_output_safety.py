@@ -141,7 +141,9 @@ PLAN = ["plan", "--population", "pores:6:400", "--sizes", "10", "--replicates", 
     ("plain.txt/plan.png", "is a file, not a folder"),
     ("missing/plan.png", "the folder"),
     ("", "is a folder; give a file name for --plot"),
-    ("plain.txt", "already exists; choose another --plot file or add --force"),
+    ("plain.txt", "cannot write a '.txt' file; end the --plot name with one of"),
+    ("plan", "cannot write a 'file without an ending' file"),
+    ("plan.png.bak", "cannot write a '.bak' file"),
 ])
 def test_plan_plot_in_an_impossible_place_is_one_error(tmp_path, monkeypatch, name, fragment):
     (tmp_path / "plain.txt").write_text("mine")
@@ -158,7 +160,9 @@ def test_plan_plot_replaced_only_with_force_and_never_half_written(tmp_path):
     assert _main([*PLAN, "--plot", str(target)])[0] == 0
     first = target.read_bytes()
     assert first.startswith(b"\x89PNG")
-    assert _main([*PLAN, "--plot", str(target)])[0] == 2 and target.read_bytes() == first
+    code, errors = _main([*PLAN, "--plot", str(target)])
+    assert code == 2 and "already exists; choose another --plot file or add --force" in errors
+    assert target.read_bytes() == first
     assert _main([*PLAN, "--plot", str(target), "--force", "--seed", "4"])[0] == 0
     assert _leftovers(tmp_path) == ["plan.png"]          # no temporary file left beside it
 
