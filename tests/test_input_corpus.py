@@ -154,6 +154,9 @@ CASES = [
     Case("rows/empty_id.csv", **err("line 6", "column 'specimen'", "empty specimen id")),
     Case("rows/excluded_rows.csv", **ok(n=8, failed=7, survived=1, unidentified=1, ambiguous=1,
                                         populations=("inclusion", "pore"), excluded=2)),
+    # excluded rows are read and listed, not validated: their strengths may be missing or nonsense
+    Case("rows/excluded_with_bad_strength.csv", **ok(n=3, failed=3, survived=0, unidentified=0, ambiguous=0,
+                                                     populations=("inclusion", "pore"), excluded=3)),
     Case("rows/all_excluded.csv", **err("every row is excluded or blank")),
     # ---- strengths ----------------------------------------------------------------------------
     Case("strength/text.csv", **err("line 6", "column 'strength'", "'abc' is not a number", "plain number in MPa")),
@@ -230,6 +233,9 @@ CASES = [
                                                      populations=("n.e.", "pore"))),
     Case("origin/custom_unidentified_word.csv", ("--unidentified-word", "N.E."),
          **ok(n=4, failed=4, survived=0, unidentified=2, ambiguous=0, populations=("pore",)), id="word-added"),
+    Case("origin/custom_unidentified_word.csv", ("--group", "pores=pore,n.e.", "--unidentified-word", "n.e."),
+         **err("population 'pores': label 'n.e.' is one of the words for 'unidentified'", "remove it from one of the "
+               "two"), named="", id="word-also-a-label"),
     Case("origin/pipe_alone.csv", **err("line 3", "column 'origin'", "origin '|' has an empty alternative",
                                         "leave the cell empty for unidentified")),
     Case("origin/pipe_trailing.csv", **err("line 4", "column 'origin'", "origin 'pore|' has an empty alternative")),
