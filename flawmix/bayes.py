@@ -16,7 +16,7 @@ from . import diagnostics
 from . import likelihood as lik
 from .errors import FlawmixError, FlawmixWarning
 from .mle import _centred_data, fit_mle
-from .priors import build_priors
+from .priors import build_priors, prior_dominance_notes
 from .result import Draws, FitResult, PopulationEstimate
 from .specimens import Specimens
 
@@ -75,6 +75,7 @@ def fit_bayes(
     common_modulus: bool = False,
     moves=None,
     geometries=None,
+    mle: FitResult | None = None,
 ) -> FitResult:
     """Posterior of every population's modulus and characteristic strength (and fractions).
 
@@ -84,15 +85,19 @@ def fit_bayes(
         reference_prior: flat in (ln m, ln σθ) (right-Haar; improper).
         seed: sampler seed; the same data, settings and seed give the same draws.
         target_ess: bulk effective sample size to reach before stopping.
-        moves: emcee moves (default: differential evolution, ``emcee.moves.DEMove()``).
+        moves: emcee moves (default: an independence proposal from the mode mixed with
+            differential evolution when a pilot trusts it, else ``emcee.moves.DEMove()``).
+        mle: the maximum-likelihood fit of the same specimens and model, if already made
+            (compare passes its own, so it is not computed twice).
     """
     import emcee
 
     if model not in lik.MODELS:
         raise FlawmixError(f"unknown model '{model}'; use one of {', '.join(lik.MODELS)}")
     start_time = time.perf_counter()
-    mle = fit_mle(specimens, confidence, model=model, intervals="none", tests=False, common_modulus=common_modulus,
-                  geometries=geometries)
+    if mle is None:
+        mle = fit_mle(specimens, confidence, model=model, intervals="none", tests=False,
+                      common_modulus=common_modulus, geometries=geometries)
     data, centre = _centred_data(specimens)
     k = data.k
     names = specimens.population_names
@@ -189,6 +194,9 @@ def fit_bayes(
     flat = chain.transpose(1, 0, 2).reshape(-1, P)           # walker-major: (walkers*steps, P)
     full = expand(flat)
     notes = list(mle.warnings)
+    for line in prior_dominance_notes(prior, names, full, confidence):
+        notes.append(line)
+        _warnings.warn(line, FlawmixWarning, stacklevel=3)
     if diag is None or diag["r_hat_max"] > R_HAT_TARGET or diag["ess_bulk_min"] < target_ess:
         notes.append(
             f"the sampler did not reach R-hat <= {R_HAT_TARGET} and bulk ESS >= {target_ess:.0f} within "
@@ -203,7 +211,7 @@ def fit_bayes(
         return fit_bayes(specimens, confidence, model=model, priors=priors, reference_prior=reference_prior,
                          seed=seed, walkers=walkers, target_ess=target_ess, max_steps=max_steps, burn=burn,
                          block=block, progress=progress, loo=loo, common_modulus=common_modulus,
-                         moves=_moves.DEMove(), geometries=geometries)
+                         moves=_moves.DEMove(), geometries=geometries, mle=mle)
     moduli = np.exp(full[:, :k])
     scales = np.exp(full[:, k:2 * k] + centre)
     fractions = spec.fractions(full)

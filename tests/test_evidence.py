@@ -1,7 +1,7 @@
 """The evidence scale: one set of words for p-values and ΔLOO, used by every verdict."""
 import pytest
 
-from flawmix.evidence import evidence_words, loo_words, rejects, verdict_sentence
+from flawmix.evidence import evidence_words, loo_words, population_count_verdict, rejects, verdict_sentence
 
 
 @pytest.mark.parametrize("p, words", [(6.7e-06, "very strong evidence"), (0.00077, "very strong evidence"),
@@ -25,3 +25,11 @@ def test_loo_bands_read_the_difference_against_its_standard_error():
     assert loo_words(-3.0, 2.0) == "weak evidence"
     assert loo_words(7.0, 2.0) == "moderate evidence"
     assert loo_words(20.0, 2.0) == "strong evidence"
+
+
+@pytest.mark.parametrize("p", [0.0004, 0.03, 0.049, 0.05, 0.2, 0.9])
+def test_the_one_population_lead_agrees_with_the_test(p):
+    # "one population is enough" exactly when the test does not reject at 5 % (issue 12)
+    lead = population_count_verdict(p, "a bootstrap test")
+    assert lead.startswith("Several flaw populations" if rejects(p) else "One population is enough")
+    assert evidence_words(p) in lead and "a bootstrap test" in lead

@@ -278,3 +278,32 @@ def test_population_without_a_certain_failure_gets_intervals_not_a_crash():
     assert p.n_failures == 0
     lo, hi = p.modulus_interval
     assert lo <= p.modulus <= hi
+
+
+# ---- coverage of the default intervals over hard cases (issue 12; studies/interval_coverage.py) --
+
+def _coverage_rows(cell, replicates=400, seed=2026):
+    import sys
+    from pathlib import Path
+    sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "studies"))
+    from interval_coverage import run_cell
+
+    rows, crashes, _, methods = run_cell(cell, replicates, seed, "auto")
+    assert crashes == 0
+    return {r["quantity"]: r for r in rows}, methods
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("cell", ["small", "issue"])
+def test_default_intervals_of_moduli_and_strengths_reach_nominal_coverage(cell):
+    # 400 seeded campaigns drawn with numpy alone, truth known; nominal 90 %, binomial
+    # standard error 1.5 %: coverage must lie within 2.5 standard errors of 90 % (or above)
+    rows, methods = _coverage_rows(cell)
+    assert "profile (bootstrap-calibrated cut-off)" in methods
+    se = np.sqrt(0.9 * 0.1 / 400)
+    for quantity in ("m_a", "σθ_a", "m_b", "σθ_b"):
+        assert 0.90 - 2.5 * se <= rows[quantity]["coverage"] <= 0.96, (quantity, rows[quantity])
+    # failure probability at a stress and the stress at 5 %: bootstrap-t, which the study
+    # measured at 82 % to 88 % here (below nominal; see DEVELOPERS.md). A floor, not a claim.
+    for quantity in ("P_f(σ)", "σ(P_f)"):
+        assert rows[quantity]["coverage"] >= 0.78, (quantity, rows[quantity])
