@@ -285,8 +285,10 @@ def cmd_plan(args) -> int:
     from .outputs import check_output_file
     from .plan import plan, plan_from_fit
 
-    if args.plot:
-        check_output_file(args.plot, args.force)     # before the simulation, not after it
+    if args.plot:   # before the simulation, not after it
+        from matplotlib.backend_bases import FigureCanvasBase
+
+        check_output_file(args.plot, args.force, kinds=set(FigureCanvasBase.get_supported_filetypes()))
 
     options = {"replicates": args.replicates, "seed": args.seed or 0, "confidence": args.confidence or 0.90,
                "progress": args.progress}

@@ -10,12 +10,17 @@ from pathlib import Path
 from .errors import FlawmixError
 
 
-def check_output_file(target, force: bool, option: str = "--plot") -> Path:
+def check_output_file(target, force: bool, option: str = "--plot", kinds=None) -> Path:
     """Raise FlawmixError unless ``target`` can be written: not an existing file without
-    ``force``, not a folder, in an existing folder where files can be created."""
+    ``force``, not a folder, in an existing folder where files can be created, and (when
+    ``kinds`` lists file name endings) of a kind that can be written."""
     target = Path(target)
     if target.is_dir():
         raise FlawmixError(f"{target}: is a folder; give a file name for {option}, like {target / 'plan.png'}")
+    kind = target.suffix.lstrip(".").lower()
+    if kinds is not None and kind not in kinds:
+        raise FlawmixError(f"{target}: cannot write a '{target.suffix or 'file without an ending'}' file; end the "
+                           f"{option} name with one of {', '.join('.' + k for k in sorted(kinds))}")
     if target.exists() and not force:
         raise FlawmixError(f"{target}: already exists; choose another {option} file or add --force")
     parent = target.parent
