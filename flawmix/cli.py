@@ -176,14 +176,37 @@ def _reexamine_text(result) -> str:
     return "\n".join(lines)
 
 
+def _unresolved_text(result, shown: int = 15) -> str:
+    """The failures whose origin is unidentified or ambiguous, each with its candidates'
+    probabilities at its strength (largest first), for the text output."""
+    from . import formatting as fmt
+    from .origins import origin_probabilities
+
+    if len(result.populations) < 2:
+        return ""
+    table = origin_probabilities(result)
+    table = table[table["reading"].isin(["unidentified", "ambiguous"])]
+    if not len(table):
+        return ""
+    names = [p.name for p in result.populations]
+    lines = ["origins not identified or ambiguous: probability of each population at the specimen's strength"]
+    for _, r in table.head(shown).iterrows():
+        ranked = sorted(((r[n], n) for n in names if r[n] >= 0.005), reverse=True)
+        lines.append(f"  {r['specimen']}: {fmt.stress(r['strength'])} {result.unit}, written '{r['origin']}': "
+                     + ", ".join(f"{n} {p:.2f}" for p, n in ranked))
+    if len(table) > shown:
+        lines.append(f"  ... and {len(table) - shown} more (all of them: --json, key origin_probabilities)")
+    return "\n".join(lines)
+
+
 def cmd_fit(args) -> int:
     study, specimens = _load(args)
     result = _fit_from_args(args, study, specimens)
     code = _emit(args, result, bottom=_bottom_line(args, study, specimens, result))
-    text = "" if args.json else _reexamine_text(result)
-    if text:
-        print()
-        print(text)
+    for text in ([] if args.json else [_unresolved_text(result), _reexamine_text(result)]):
+        if text:
+            print()
+            print(text)
     _print_warnings(result)
     return code
 

@@ -282,3 +282,23 @@ def test_mixture_refit_without_a_label_equals_fitting_the_edited_table(model):
         table = fm.fit(edited, model=model, intervals="none").origin_probabilities()
         row = table[table["specimen"] == str(rows[n] + 1)]
         np.testing.assert_allclose(probs[n], row[[p.name for p in r.populations]].to_numpy(float)[0], atol=1e-5)
+
+
+def test_fit_text_lists_every_open_origin_with_the_api_probabilities(capsys):
+    """`flawmix fit` prints each unidentified or ambiguous failure of the demo with the same
+    probabilities (to two decimals) as result.origin_probabilities()."""
+    from flawmix.cli import demo_paths, main
+
+    table, study = demo_paths()
+    assert main(["fit", str(table), "--study", str(study), "--quiet"]) == 0
+    out = capsys.readouterr().out
+    from flawmix.study import read_study
+
+    result = fm.fit(fm.read_specimens(table, read_study(study).populations))
+    frame = result.origin_probabilities()
+    open_rows = frame[frame["reading"].isin(["unidentified", "ambiguous"])]
+    assert len(open_rows) == result.n_unidentified + result.n_ambiguous > 0
+    for _, row in open_rows.iterrows():
+        line = next(ln for ln in out.splitlines() if ln.strip().startswith(f"{row['specimen']}:"))
+        for name in [p.name for p in result.populations]:
+            assert f"{name} {row[name]:.2f}" in line
