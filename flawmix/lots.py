@@ -11,6 +11,7 @@ from typing import Any, Mapping, Sequence
 
 import numpy as np
 
+from . import formatting as fmt
 from . import likelihood as lik
 from .errors import FlawmixError
 from .evidence import evidence_words, rejects
@@ -897,7 +898,7 @@ def _overall_sentence(overall: dict, where: str, unit: str) -> str:
     shares = ", ".join(f"{n} {100 * first['risk_shares'][n]:.0f} % → {100 * last['risk_shares'][n]:.0f} %"
                        for n in first["risk_shares"])
     return (f"{where}: stress at {100 * overall['probability']:g} % failure probability "
-            f"{first['stress_at_probability']:.4g} → {last['stress_at_probability']:.4g} {unit} "
+            f"{fmt.stress(first['stress_at_probability'])} → {fmt.stress(last['stress_at_probability'])} {unit} "
             f"({_percent_change(overall['ratio'])}); risk shares there: {shares}"
             + (f" ({', '.join(held)} held equal in every lot: no detected change)" if held else ""))
 
@@ -1057,7 +1058,9 @@ def format_comparison(c: LotComparison) -> str:
                      + (f"; P(σθ rose) {_probability_words(ch['probability_stronger'])}"
                         if "probability_stronger" in ch else ""))
         lines.append("")
-    lines.append("Verdict: " + c.verdict)
+    import textwrap
+
+    lines.append(textwrap.fill("Verdict: " + c.verdict, width=92, subsequent_indent="  ", break_on_hyphens=False))
     return "\n".join(lines)
 
 
