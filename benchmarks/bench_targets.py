@@ -2,7 +2,7 @@
 
 Run:  python benchmarks/bench_targets.py [--quick] [--only NAME ...]
 In-process targets interleave ours and the reference (A B A B ...) and report the ratio of
-medians, so a busy machine slows both alike. Whole-process targets are CPU seconds (user +
+median CPU times, so a busy machine slows both alike. Whole-process targets are CPU seconds (user +
 sys of the child, from os.wait4 accounting) against the import floor
 ``python -c "import numpy, scipy.stats, pandas"`` measured in the same run.
 """
@@ -30,12 +30,13 @@ FLOOR = [sys.executable, "-c", "import numpy, scipy.stats, pandas"]
 
 
 def interleaved(ours, reference, repeat):
-    """(median seconds of ours, of the reference), run alternately after one warm-up each."""
+    """(median CPU seconds of ours, of the reference), run alternately after one warm-up each.
+    CPU time of this process, which a busy machine disturbs far less than wall time."""
     ours(), reference()
     a, b = [], []
     for _ in range(repeat):
-        t = time.perf_counter(); ours(); a.append(time.perf_counter() - t)
-        t = time.perf_counter(); reference(); b.append(time.perf_counter() - t)
+        t = time.process_time(); ours(); a.append(time.process_time() - t)
+        t = time.process_time(); reference(); b.append(time.process_time() - t)
     return statistics.median(a), statistics.median(b)
 
 
@@ -70,7 +71,11 @@ def target_labelled(quick):
             own = sp.candidates[:, j] & sp.failed
             stats.weibull_min.fit(stats.CensoredData(uncensored=s[own], right=s[~own]), floc=0)
     ours, ref = interleaved(lambda: fm.fit(sp), scipy_fits, 15 if quick else 60)
-    return ("fm.fit default, N=30 labelled", ours, "scipy weibull_min.fit on CensoredData x2", ref, ref / ours, 100)
+    profile, ref2 = interleaved(lambda: fm.fit(sp, intervals="profile"), scipy_fits, 15 if quick else 60)
+    print_row(("fm.fit intervals='profile' (chi-square cut-off), N=30 labelled", profile,
+               "scipy weibull_min.fit on CensoredData x2", ref2, ref2 / profile, 100))
+    return ("fm.fit default (calibrated profile), N=30 labelled", ours, "scipy weibull_min.fit on CensoredData x2",
+            ref, ref / ours, 100)
 
 
 def _generic_nll(sp):
@@ -100,12 +105,24 @@ def target_unidentified(quick):
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         ours, ref = interleaved(lambda: fm.fit(sp), generic, 3 if quick else 7)
-    return ("fm.fit default, N=40, 25% unidentified", ours, "12-start Nelder-Mead + BFGS", ref, ref / ours, 60)
+        profile, ref2 = interleaved(lambda: fm.fit(sp, intervals="profile"), generic, 3 if quick else 7)
+    print_row(("fm.fit intervals='profile', N=40, 25% unidentified", profile, "12-start Nelder-Mead + BFGS",
+               ref2, ref2 / profile, 60))
+    return ("fm.fit default (calibrated profile), N=40, 25% unidentified", ours, "12-start Nelder-Mead + BFGS",
+            ref, ref / ours, 60)
 
 
 def write_table(folder, n, unknown, seed):
     path = Path(folder) / f"campaign_{n}_{seed}.csv"
     campaign(np.random.default_rng(seed), n, unknown).to_csv(path, index=False)
+    return path
+
+
+def many_labels_table(folder):
+    rng = np.random.default_rng(7)
+    labels = np.repeat([f"L{i:03d}" for i in range(200)], 3)
+    path = Path(folder) / "many_labels.csv"
+    pd.DataFrame({"strength": 400 * rng.weibull(8, labels.size), "origin": labels}).to_csv(path, index=False)
     return path
 
 
@@ -123,13 +140,17 @@ def whole_process_targets(quick, only):
             ("fit --method bayes, 2 pops, N=40", py + ["fit", str(forty), "--method", "bayes", "--json"], 10),
             ("compare --json, N=150", py + ["compare", str(big), "--json"], 20),
             ("demo", py + ["demo", "--out", str(Path(folder) / "demo"), "--force"], 20),
+            ("fit --json, 200 populations x 3 failures", py + ["fit", str(many_labels_table(folder)), "--json"], None),
         ]
         floor = process_cpu(FLOOR, max(3, runs))
         for name, command, target in commands:
             if only and not any(word in name for word in only):
                 continue
             cpu = process_cpu(command, runs if "demo" not in name and "compare" not in name else 1)
-            rows.append((name, cpu, "import numpy, scipy.stats, pandas", floor, cpu / floor, target))
+            if target is None:   # an absolute target: an answer within 10 CPU s
+                rows.append((name + " (CPU s)", cpu, "target", 10.0, 10.0 / cpu, 1))
+            else:
+                rows.append((name, cpu, "import numpy, scipy.stats, pandas", floor, cpu / floor, target))
     return rows
 
 
@@ -154,8 +175,10 @@ def target_million(quick):
     from bench_fit import bench_large
 
     d = bench_large()
-    seconds = d["1e6 specimens, 3 populations, 10% unidentified, fit incl. intervals (s)"]
-    return ("fm.fit 1e6 specimens, 3 pops, with intervals (s)", seconds, "target", 3.0, 3.0 / seconds, 1)
+    wall = d["1e6 specimens, 3 populations, 10% unidentified, fit incl. intervals (s)"]
+    seconds = d["the same in CPU seconds"]
+    print(f"  (the same fit took {wall:.3g} s of wall time, peak memory {d['peak memory of the process (MB)']:.0f} MB)")
+    return ("fm.fit 1e6 specimens, 3 pops, with intervals (CPU s)", seconds, "target", 3.0, 3.0 / seconds, 1)
 
 
 def main():

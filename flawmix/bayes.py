@@ -16,7 +16,7 @@ from . import diagnostics
 from . import likelihood as lik
 from .errors import FlawmixError, FlawmixWarning
 from .mle import _centred_data, fit_mle
-from .priors import build_priors
+from .priors import build_priors, prior_dominance_notes
 from .result import Draws, FitResult, PopulationEstimate
 from .specimens import Specimens
 
@@ -75,6 +75,7 @@ def fit_bayes(
     common_modulus: bool = False,
     moves=None,
     geometries=None,
+    mle: FitResult | None = None,
 ) -> FitResult:
     """Posterior of every population's modulus and characteristic strength (and fractions).
 
@@ -84,15 +85,19 @@ def fit_bayes(
         reference_prior: flat in (ln m, ln σθ) (right-Haar; improper).
         seed: sampler seed; the same data, settings and seed give the same draws.
         target_ess: bulk effective sample size to reach before stopping.
-        moves: emcee moves (default: differential evolution, ``emcee.moves.DEMove()``).
+        moves: emcee moves (default: an independence proposal from the mode mixed with
+            differential evolution when a pilot trusts it, else ``emcee.moves.DEMove()``).
+        mle: the maximum-likelihood fit of the same specimens and model, if already made
+            (compare passes its own, so it is not computed twice).
     """
     import emcee
 
     if model not in lik.MODELS:
         raise FlawmixError(f"unknown model '{model}'; use one of {', '.join(lik.MODELS)}")
     start_time = time.perf_counter()
-    mle = fit_mle(specimens, confidence, model=model, intervals="none", tests=False, common_modulus=common_modulus,
-                  geometries=geometries)
+    if mle is None:
+        mle = fit_mle(specimens, confidence, model=model, intervals="none", tests=False,
+                      common_modulus=common_modulus, geometries=geometries)
     data, centre = _centred_data(specimens)
     k = data.k
     names = specimens.population_names
@@ -143,15 +148,19 @@ def fit_bayes(
         theta_mle = np.concatenate([theta_mle[:1], theta_mle[k:2 * k]])
     n_walkers = walkers or max(32, 4 * P)
     rng = np.random.default_rng(seed)
-    if common_modulus:   # a rough scale is enough for the starting ball
-        hess = -np.eye(P) * max(specimens.n_failed, 1) * 4.0
+    if common_modulus:   # the Hessian in [u, v_1..v_k]: J^T H J with J the tie (one u for all)
+        tie = np.zeros((2 * k, P))
+        tie[:k, 0] = 1.0
+        tie[k:, 1:] = np.eye(k)
+        hess = tie.T @ lik.numerical_derivatives(spec, data, expand(theta_mle))[2] @ tie
     else:
         hess = lik.numerical_derivatives(spec, data, theta_mle)[2]
     start = _start_ball(rng, theta_mle, hess, n_walkers, lo_s, hi_s)
     independent = None
-    if moves is None and not common_modulus:
+    if moves is None:
         independent = _independence_setup(theta_mle, hess, log_prob, rng, n_walkers)
     first_check = 1000
+    asked = (burn, block)
     if independent is not None:   # a proposal the pilot trusts: start spread like the posterior
         moves, start = independent
         burn, block, first_check = min(burn, INDEPENDENCE_BURN), min(block, 200), 200
@@ -184,11 +193,23 @@ def fit_bayes(
                 break
         block = min(max(block, steps // 2), 5000)
     bar.close(f"{burn + steps} steps")
+    acceptance = float(np.mean(sampler.acceptance_fraction))
+    if independent is not None and acceptance < INDEPENDENCE_MIN_ACCEPTANCE:
+        # the proposal looked fine to the pilot but the chain rarely moves: DE moves instead
+        import emcee.moves as _moves
+
+        return fit_bayes(specimens, confidence, model=model, priors=priors, reference_prior=reference_prior,
+                         seed=seed, walkers=walkers, target_ess=target_ess, max_steps=max_steps, burn=asked[0],
+                         block=asked[1], progress=progress, loo=loo, common_modulus=common_modulus,
+                         moves=_moves.DEMove(), geometries=geometries, mle=mle)
     chain = sampler.get_chain()[steps // 5:]
     kept_steps = chain.shape[0]
     flat = chain.transpose(1, 0, 2).reshape(-1, P)           # walker-major: (walkers*steps, P)
     full = expand(flat)
     notes = list(mle.warnings)
+    for line in prior_dominance_notes(prior, names, full, confidence):
+        notes.append(line)
+        _warnings.warn(line, FlawmixWarning, stacklevel=3)
     if diag is None or diag["r_hat_max"] > R_HAT_TARGET or diag["ess_bulk_min"] < target_ess:
         notes.append(
             f"the sampler did not reach R-hat <= {R_HAT_TARGET} and bulk ESS >= {target_ess:.0f} within "
@@ -196,14 +217,6 @@ def fit_bayes(
             "intervals may be unreliable: raise max_steps or check for a poorly identified population")
         _warnings.warn(notes[-1], FlawmixWarning, stacklevel=3)
     acceptance = float(np.mean(sampler.acceptance_fraction))
-    if independent is not None and acceptance < INDEPENDENCE_MIN_ACCEPTANCE:
-        # the proposal looked fine to the pilot but the chain rarely moves: DE moves instead
-        import emcee.moves as _moves
-
-        return fit_bayes(specimens, confidence, model=model, priors=priors, reference_prior=reference_prior,
-                         seed=seed, walkers=walkers, target_ess=target_ess, max_steps=max_steps, burn=burn,
-                         block=block, progress=progress, loo=loo, common_modulus=common_modulus,
-                         moves=_moves.DEMove(), geometries=geometries)
     moduli = np.exp(full[:, :k])
     scales = np.exp(full[:, k:2 * k] + centre)
     fractions = spec.fractions(full)

@@ -15,6 +15,7 @@ from typing import Any
 import numpy as np
 
 from . import formatting as fmt
+from . import support
 from .errors import FlawmixError
 
 DEFAULT_TARGET = 1e-3            # failure probability analysed when the study gives no load
@@ -169,8 +170,9 @@ def bottom_line(result, prediction=None, comparison=None, *, load: float | None 
             what = lambda x: f"{fmt.percent(100 * x)}\u00a0% of the failures there"
             cross = ""
         spec_limit, share = _limit_at(shares)
+        weak = support.sentence_note(support.driver_note(support.weak_populations(result), shares))
         findings.append(f"Test specimens: '{spec_limit}' limits strength at the median failure stress "
-                        f"{fmt.stress(typical)} {unit} ({what(share)}){cross}.")
+                        f"{fmt.stress(typical)} {unit} ({what(share)}{'; ' + weak if weak else ''}){cross}.")
     elif len(result.populations) == 1:
         spec_limit = result.populations[0].name
         findings.append(f"Test specimens: one population, '{spec_limit}'.")
@@ -212,8 +214,9 @@ def bottom_line(result, prediction=None, comparison=None, *, load: float | None 
                                                       list(prediction.populations), 0.5 * at, 2.0 * at), unit)
             differs = (f" (not '{spec_limit}', which limits the test specimens)"
                        if spec_limit and comp_limit != spec_limit else "")
+            weak = support.sentence_note(support.notes_at(result, prediction.component_strengths, [at])[0])
             findings.append(f"{name.capitalize()}: '{comp_limit}' limits it at {fmt.stress(at)} {unit} "
-                            f"({_share_words(share)}){differs}{cross}.")
+                            f"({_share_words(share)}{'; ' + weak if weak else ''}){differs}{cross}.")
     choice = model_choice_text(result, comparison)
     findings.append(choice)
     cautions = _cautions(result, prediction, pf_value, load)[:2]

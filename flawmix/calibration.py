@@ -68,20 +68,30 @@ def _ascend(data: lik.Data, theta: np.ndarray, free: np.ndarray, steps: int, tol
         step[:, idx] = step_f
         sub = lik.Data(data.y[a], data.failed[a], data.candidates[a])
         t_a, ll_a = theta[a], ll[a]
-        accepted = np.zeros(a.size, bool)
-        scale = np.ones(a.size)
-        for _ in range(30):
-            trial = np.clip(t_a + scale[:, None] * step, lo, hi)
-            ll_new = lik.concurrent_loglik(sub, trial[:, :k], trial[:, k:])
-            good = ~accepted & (ll_new >= ll_a - 1e-10 * np.maximum(1.0, np.abs(ll_a)))
-            t_a = np.where(good[:, None], trial, t_a)
-            accepted |= good
+        floor = ll_a - 1e-10 * np.maximum(1.0, np.abs(ll_a))
+        # the full step, with derivatives at once: most rows take it, and need no second call
+        full = np.clip(t_a + step, lo, hi)
+        ll_full, g_full, H_full = lik.concurrent_derivatives_batch(sub, full)
+        accepted = ll_full >= floor
+        t_a = np.where(accepted[:, None], full, t_a)
+        scale = np.where(accepted, 1.0, 0.5)
+        for _ in range(29):
             if accepted.all():
                 break
+            trial = np.clip(t_a + scale[:, None] * step, lo, hi)
+            ll_new = lik.concurrent_loglik(sub, trial[:, :k], trial[:, k:])
+            good = ~accepted & (ll_new >= floor)
+            t_a = np.where(good[:, None], trial, t_a)
+            accepted |= good
             scale = np.where(accepted, scale, scale / 2)
         theta[a] = t_a
         previous = ll[a]
-        ll[a], g[a], H[a] = lik.concurrent_derivatives_batch(sub, t_a)
+        ll_full[~accepted], g_full[~accepted], H_full[~accepted] = ll_a[~accepted], g[a][~accepted], H[a][~accepted]
+        halved = np.flatnonzero(accepted & (scale < 1.0))
+        if halved.size:
+            part = lik.Data(sub.y[halved], sub.failed[halved], sub.candidates[halved])
+            ll_full[halved], g_full[halved], H_full[halved] = lik.concurrent_derivatives_batch(part, t_a[halved])
+        ll[a], g[a], H[a] = ll_full, g_full, H_full
         # no ascent left that matters for a likelihood ratio (a maximum, a modulus at its
         # bound, or a likelihood still creeping up towards an infinite modulus)
         stalled = ~accepted | (ll[a] - previous <= 1e-7)
@@ -89,7 +99,33 @@ def _ascend(data: lik.Data, theta: np.ndarray, free: np.ndarray, steps: int, tol
     return theta, ll
 
 
+def _refits(data: lik.Data, truth: np.ndarray):
+    """Free refits (R, 2k), signed roots of every parameter at the truth (R, 2k, unclipped)
+    and Hessians at the refits (R, 2k, 2k), by batched ascent on the joint likelihood."""
+    k = data.k
+    start = np.broadcast_to(truth, (data.y.shape[0], 2 * k))
+    # every refit starts from the truth of the bootstrap world, where its maximum lies near
+    theta, ll_free = _ascend(data, start, np.ones(2 * k, bool), ASCENT_STEPS, 1e-6)
+    roots = np.empty_like(theta)
+    for i in range(2 * k):
+        free = np.ones(2 * k, bool)
+        free[i] = False
+        _, ll_fixed = _ascend(data, start, free, ASCENT_STEPS, 1e-6)
+        statistic = np.maximum(2.0 * (ll_free - ll_fixed), 0.0)
+        roots[:, i] = np.sign(theta[:, i] - start[0, i]) * np.sqrt(statistic)
+    _, _, hessian = lik.concurrent_derivatives_batch(data, theta)
+    return theta, roots, hessian
+
+
 def _inverse_information(hessian: np.ndarray) -> np.ndarray:
+    try:   # all at once; row by row only when some row is singular
+        cov = np.linalg.inv(-hessian)
+        diagonal = np.diagonal(cov, axis1=1, axis2=2)
+        usable = np.all(np.isfinite(cov), axis=(1, 2)) & np.all(diagonal > 0, axis=1)
+        cov[~usable] = np.nan
+        return cov
+    except np.linalg.LinAlgError:
+        pass
     cov = np.full_like(hessian, np.nan)
     for r in range(hessian.shape[0]):
         try:
@@ -118,18 +154,17 @@ def calibrate(specimens, moduli, scales, confidence: float, replicates: int = DE
     centre = float(np.mean(np.log(specimens.strength)))
     shift = np.concatenate([np.zeros(k), np.full(k, centre)])
     data = lik.Data(data.y[ok] - centre, data.failed[ok], data.candidates[ok])
-    start = np.broadcast_to(theta_hat - shift, (int(ok.sum()), 2 * k))
-    # every refit starts from the truth of the bootstrap world, where its maximum lies near
-    theta, ll_free = _ascend(data, start, np.ones(2 * k, bool), ASCENT_STEPS, 1e-6)
-    roots = np.empty_like(theta)
-    for i in range(2 * k):
-        free = np.ones(2 * k, bool)
-        free[i] = False
-        _, ll_fixed = _ascend(data, start, free, ASCENT_STEPS, 1e-6)
-        statistic = np.maximum(2.0 * (ll_free - ll_fixed), 0.0)
-        roots[:, i] = np.sign(theta[:, i] - start[0, i]) * np.sqrt(statistic)
+    if data.certain:   # labelled campaigns: closed-form refits, general ones only where irregular
+        from .labelled import labelled_refits
+
+        theta, roots, hessian, regular = labelled_refits(data, theta_hat - shift)
+        if not regular.all():
+            rest = np.flatnonzero(~regular)
+            theta[rest], roots[rest], hessian[rest] = _refits(
+                lik.Data(data.y[rest], data.failed[rest], data.candidates[rest]), theta_hat - shift)
+    else:
+        theta, roots, hessian = _refits(data, theta_hat - shift)
     roots = np.clip(roots, -SIGNED_ROOT_CLIP, SIGNED_ROOT_CLIP)
-    _, _, hessian = lik.concurrent_derivatives_batch(data, theta)
     return Calibration(theta_hat, theta + shift, _inverse_information(hessian), roots,
                        signed_root_drops(roots, confidence), int(ok.sum()), int(replicates), seed)
 

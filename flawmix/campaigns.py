@@ -57,11 +57,11 @@ def random_campaign(rng, ranges: CampaignRanges = CampaignRanges(), unit_scale: 
     data = replicate(simulate(lik.Model("concurrent", k), moduli, scales, None,
                               Design(censor, unidentified), 1, rng), 0)
     pops = tuple(Population(f"flaw{j + 1}") for j in range(k))
-    specimens = Specimens(np.exp(data.y), data.failed, data.candidates, pops)
+    specimens = Specimens(np.exp(data.y), data.failed, data.candidates, pops, ids=np.array([f"S{i + 1}" for i in range(n)]))
     return Campaign(specimens, moduli, scales, unidentified, survivors)
 
 
 def rescaled(specimens: Specimens, factor: float) -> Specimens:
     """The same campaign with every stress multiplied by ``factor`` (a change of unit)."""
     return Specimens(specimens.strength * factor, specimens.failed, specimens.candidates, specimens.populations,
-                     unit=specimens.unit)
+                     unit=specimens.unit, ids=specimens.ids)

@@ -282,7 +282,13 @@ def _parse_population(text: str) -> dict:
 
 
 def cmd_plan(args) -> int:
+    from .outputs import check_output_file
     from .plan import plan, plan_from_fit
+
+    if args.plot:   # before the simulation, not after it
+        from matplotlib.backend_bases import FigureCanvasBase
+
+        check_output_file(args.plot, args.force, kinds=set(FigureCanvasBase.get_supported_filetypes()))
 
     options = {"replicates": args.replicates, "seed": args.seed or 0, "confidence": args.confidence or 0.90,
                "progress": args.progress}
@@ -307,12 +313,12 @@ def cmd_plan(args) -> int:
     if args.plot:
         from . import plots
 
-        target = Path(args.plot)
-        if target.exists() and not args.force:
-            raise FlawmixError(f"{target}: already exists; choose another --plot file or add --force")
         from .fonts import save
+        from .outputs import write_atomically
 
-        save(plots.plan_plot(result).figure, target, dpi=130, bbox_inches="tight")
+        figure = plots.plan_plot(result).figure
+        kind = Path(args.plot).suffix.lstrip(".").lower() or "png"
+        write_atomically(args.plot, lambda path: save(figure, path, dpi=130, bbox_inches="tight", format=kind))
     return _emit(args, result)
 
 

@@ -164,6 +164,7 @@ def compare(
         single_test_replicates: replicates of the batched bootstrap behind the test of one
             population (0: no test; the verdict then rests on the scores alone).
     """
+    from .bayes import fit_bayes
     from .fit import fit
 
     k = len(specimens.populations)
@@ -183,8 +184,9 @@ def compare(
                 if name == "concurrent-common-modulus":
                     continue
                 model = "concurrent" if name in ("single", "concurrent") else name
-                bayes_fits[name] = fit(specimens, method="bayes", model=model, common_modulus=(name == "single" and k > 1),
-                                       seed=seed, target_ess=target_ess, confidence=confidence)
+                # the maximum-likelihood fit made above is the sampler's start: not made twice
+                bayes_fits[name] = fit_bayes(specimens, confidence, model=model, seed=seed, target_ess=target_ess,
+                                             common_modulus=(name == "single" and k > 1), mle=fits[name])
             if k > 1:
                 bayes_fits["concurrent-common-modulus"] = bayes_fits["single"]
 

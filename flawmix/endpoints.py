@@ -56,7 +56,7 @@ def profile_end_points(data: lik.Data, theta_hat: np.ndarray, hessian: np.ndarra
 
     data: one concurrent data set (no leading dims, no geometries); theta_hat (2k,) the
     maximum and ``hessian`` (2k, 2k) the Hessian there; drops: (below, above) fall in
-    log-likelihood; lower/upper (2k,): bounds no parameter of an end point may pass.
+    log-likelihood, or one such row per entry of ``indices``; lower/upper (2k,): bounds no parameter of an end point may pass.
     Returns (ends (len(indices), 2), solved (len(indices), 2) bool).
     """
     indices = np.asarray(indices, dtype=int)
@@ -67,7 +67,9 @@ def profile_end_points(data: lik.Data, theta_hat: np.ndarray, hessian: np.ndarra
     # one row per end point: parameter, side
     rows_index = np.repeat(indices, 2)
     direction = np.tile([-1.0, 1.0], indices.size)
-    drop = np.tile(np.asarray(drops, dtype=float), indices.size)
+    drops = np.asarray(drops, dtype=float)
+    # one (below, above) pair for every parameter, or a pair per parameter in ``indices``
+    drop = drops.reshape(-1) if drops.ndim == 2 else np.tile(drops, indices.size)
     if separable:
         population = rows_index % k
         local_index = (rows_index >= k).astype(int)                       # 0: modulus, 1: scale
@@ -79,8 +81,9 @@ def profile_end_points(data: lik.Data, theta_hat: np.ndarray, hessian: np.ndarra
         local_index = rows_index
     theta0 = theta_hat[columns]                                            # (E, P)
     hess0 = hessian[columns[:, :, None], columns[:, None, :]]              # (E, P, P)
-    ll_hat, _, _ = derivatives(theta0)
-    theta, ok = _solve(derivatives, theta0, hess0, local_index, direction, ll_hat - drop, drop, project)
+    with np.errstate(all="ignore"):   # rows that overflow far from the maximum end as not solved
+        ll_hat, _, _ = derivatives(theta0)
+        theta, ok = _solve(derivatives, theta0, hess0, local_index, direction, ll_hat - drop, drop, project)
     low, high = lower[columns], upper[columns]
     ok &= np.all((theta >= low) & (theta <= high), axis=1)
     ends.reshape(-1)[:] = theta[np.arange(theta.shape[0]), local_index]
@@ -127,7 +130,7 @@ def _solve(derivatives, theta_hat, hess_hat, index, direction, target, drop, pro
         jac = hess.copy()
         jac[rows, index, :] = grad
         try:
-            step = -np.linalg.solve(jac, residual[..., None])[..., 0]
+            step = -_solve_linear(jac, residual)
         except np.linalg.LinAlgError:
             break
         largest = np.abs(step).max(axis=1)
@@ -148,6 +151,20 @@ def _solve(derivatives, theta_hat, hess_hat, index, direction, target, drop, pro
     return theta, done & ~failed & _is_profile_maximum(hess, theta, index)
 
 
+def _solve_linear(matrix: np.ndarray, vector: np.ndarray) -> np.ndarray:
+    """x with matrix @ x = vector for stacks (E, P, P), (E, P); 2 x 2 systems by Cramer's rule
+    (np.linalg.solve's per-call overhead dominates for so small a system)."""
+    if matrix.shape[-1] != 2:
+        return np.linalg.solve(matrix, vector[..., None])[..., 0]
+    a, b, c, d = matrix[:, 0, 0], matrix[:, 0, 1], matrix[:, 1, 0], matrix[:, 1, 1]
+    with np.errstate(divide="ignore", invalid="ignore"):
+        inverse_det = 1.0 / (a * d - b * c)
+    out = np.empty_like(vector)
+    out[:, 0] = (d * vector[:, 0] - b * vector[:, 1]) * inverse_det
+    out[:, 1] = (a * vector[:, 1] - c * vector[:, 0]) * inverse_det
+    return out
+
+
 def _is_profile_maximum(hess, theta, index) -> np.ndarray:
     """True where the other parameters sit at a local maximum (−H without row/column i is
     positive definite; H from the last Newton iterate, a step of < 1e-11 away), i.e. the
@@ -159,9 +176,11 @@ def _is_profile_maximum(hess, theta, index) -> np.ndarray:
     keep = np.ones((E, P), bool)
     keep[np.arange(E), index] = False
     others = -hess[keep[:, :, None] & keep[:, None, :]].reshape(E, P - 1, P - 1)
-    with np.errstate(invalid="ignore"):
-        eigen = np.linalg.eigvalsh(others)
-    return np.all(eigen > 0, axis=1) & np.all(np.isfinite(theta), axis=1)
+    finite = np.all(np.isfinite(theta), axis=1) & np.all(np.isfinite(others), axis=(1, 2))
+    positive = np.zeros(E, bool)
+    if finite.any():   # a row that overflowed has no eigenvalues (eigvalsh would raise)
+        positive[finite] = np.all(np.linalg.eigvalsh(others[finite]) > 0, axis=1)
+    return positive
 
 
 def batched_profile_intervals(data: lik.Data, optimum, confidence: float, lower, upper, drops=None,
@@ -171,12 +190,15 @@ def batched_profile_intervals(data: lik.Data, optimum, confidence: float, lower,
     :func:`optimize.profile_interval` on that population's own two-parameter likelihood
     when origins are labelled (the same profile, up to a constant); with unidentified origins
     they are left out, for the caller's bracketing search on the whole likelihood.
-    ``drops`` as there; ``limits(index)`` gives each parameter's (low, high) search limits."""
+    ``drops``: (below, above) for every parameter, or (2k, 2) one pair per parameter (a
+    calibrated cut-off); ``limits(index)`` gives each parameter's (low, high) search limits."""
     from .optimize import Optimum, chi2_cutoff, profile_interval
 
+    P, k = optimum.theta.size, data.k
     if drops is None:
         drops = (chi2_cutoff(confidence), chi2_cutoff(confidence))
-    P, k = optimum.theta.size, data.k
+    drops = np.asarray(drops, dtype=float)
+    per_parameter = drops if drops.ndim == 2 else np.tile(drops, (P, 1))
     if P != 2 * k or not np.all(np.isfinite(optimum.hessian)):
         return {}
     ends, solved = profile_end_points(data, optimum.theta, optimum.hessian, np.arange(P), drops, lower, upper)
@@ -191,6 +213,6 @@ def batched_profile_intervals(data: lik.Data, optimum, confidence: float, lower,
         ll, grad, hess = lik.concurrent_derivatives(own, theta)
         alone = Optimum(theta, ll, grad, hess, 0, optimum.converged)
         out[i] = profile_interval(lambda t: lik.concurrent_derivatives(own, t), alone, int(i >= k), confidence,
-                                  lower=lower[columns], upper=upper[columns], drops=drops,
+                                  lower=lower[columns], upper=upper[columns], drops=tuple(per_parameter[i]),
                                   limits=limits(i) if limits else (-np.inf, np.inf), problems=problems)
     return out

@@ -1,8 +1,6 @@
 """Lots compared population by population: did a process change move one flaw population?
-
-The lot model is parameter tying over lot-specific copies of every population: copy (lot l,
-population j) is an ordinary concurrent population carried only by lot l's specimens, so the
-one likelihood (flawmix/likelihood.py) serves; each hypothesis ties copies across lots.
+The lot model ties lot-specific copies of every population (copy (l, j) is carried only by lot
+l's specimens), so the one likelihood (flawmix/likelihood.py) serves every hypothesis.
 """
 from __future__ import annotations
 
@@ -15,7 +13,7 @@ import numpy as np
 
 from . import likelihood as lik
 from .errors import FlawmixError
-from .evidence import TEST_LEVEL, evidence_words, rejects
+from .evidence import evidence_words, rejects
 
 LOT_COLUMN = "lot"
 DEFAULT_PROBABILITY = 0.01    # the failure probability at which strength changes are also stated
@@ -866,7 +864,8 @@ def _percent_change(ratio: float) -> str:
     return f"{100 * (ratio - 1):+.0f} %".replace("-", "−")
 
 
-def population_verdict(name: str, change: dict, same: dict, modulus: dict, lots: Sequence[str]) -> str:
+def population_verdict(name: str, change: dict, same: dict, modulus: dict, lots: Sequence[str],
+                       moduli: Sequence[float] = ()) -> str:
     """One clause per population, in the words of the evidence scale (flawmix/evidence.py)."""
     p = same["p_value"]
     ratio, (lo, hi) = change["ratio"], change["ratio_interval"]
@@ -881,7 +880,8 @@ def population_verdict(name: str, change: dict, same: dict, modulus: dict, lots:
         text = (f"{name}: σθ {direction} {abs(100 * (ratio - 1)):.0f} % {span} from '{lots[0]}' to '{lots[-1]}', "
                 f"{words} of a change (p = {p:.2g})")
         if rejects(modulus["p_value"]):
-            text += f"; the modulus changed too ({evidence_words(modulus['p_value'])}, p = {modulus['p_value']:.2g})"
+            shift = f"m {moduli[0]:.3g} → {moduli[-1]:.3g}, " if len(moduli) else ""
+            text += f", and its modulus changed ({shift}{evidence_words(modulus['p_value'])}, p = {modulus['p_value']:.2g})"
     if change.get("probability_stronger") is not None:
         text += f", posterior probability that σθ rose {_probability_words(change['probability_stronger'])}"
     return text
@@ -893,11 +893,13 @@ def _probability_words(p: float) -> str:
 
 def _overall_sentence(overall: dict, where: str, unit: str) -> str:
     first, last = overall["by_lot"][0], overall["by_lot"][-1]
+    held = overall.get("held_equal")
     shares = ", ".join(f"{n} {100 * first['risk_shares'][n]:.0f} % → {100 * last['risk_shares'][n]:.0f} %"
                        for n in first["risk_shares"])
     return (f"{where}: stress at {100 * overall['probability']:g} % failure probability "
             f"{first['stress_at_probability']:.4g} → {last['stress_at_probability']:.4g} {unit} "
-            f"({_percent_change(overall['ratio'])}); risk shares there: {shares}")
+            f"({_percent_change(overall['ratio'])}); risk shares there: {shares}"
+            + (f" ({', '.join(held)} held equal in every lot: no detected change)" if held else ""))
 
 
 def _assemble(lots, model, free, tests, estimates, changes, posterior, confidence, probability, method, study,
@@ -906,8 +908,8 @@ def _assemble(lots, model, free, tests, estimates, changes, posterior, confidenc
     names, L = sp.population_names, lots.n_lots
     if posterior is not None:
         estimates = _posterior_estimates(estimates, posterior, confidence, model.centre)
-    moduli = np.array([[estimates[j][l]["modulus"] for j in range(model.k)] for l in range(L)])
-    scales = np.array([[estimates[j][l]["characteristic_strength"] for j in range(model.k)] for l in range(L)])
+    lot_moduli = np.array([[estimates[j][l]["modulus"] for j in range(model.k)] for l in range(L)])
+    lot_scales = np.array([[estimates[j][l]["characteristic_strength"] for j in range(model.k)] for l in range(L)])
     pops = []
     for j, pop in enumerate(sp.populations):
         (ratio, lo, hi), (s_ratio, s_lo, s_hi) = changes[j]
@@ -919,9 +921,13 @@ def _assemble(lots, model, free, tests, estimates, changes, posterior, confidenc
             _add_posterior_change(change, stress, posterior[1], j, probability, confidence)
         same, modulus = tests[j]["same_population"], tests[j]["same_modulus"]
         pops.append(LotPopulation(pop.name, pop.kind, tuple(estimates[j]), same, modulus, change, stress,
-                                  population_verdict(pop.name, change, same, modulus, lots.names)))
+                                  population_verdict(pop.name, change, same, modulus, lots.names,
+                                                     [row["modulus"] for row in estimates[j]])))
     where = f"overall ({model.extras['reference_geometry']})" if model.sized else "overall (test specimen)"
-    overall = overall_change(moduli, scales, lots.names, names, probability)
+    held = [j for j in range(model.k) if not pops[j].changed]
+    moduli, scales = selected_parameters(model, free, held)
+    overall = {**overall_change(moduli, scales, lots.names, names, probability),
+               "held_equal": [names[j] for j in held]}
     component = _component_change(lots, study, model, moduli, scales, probability)
     sentences = [p.verdict for p in pops] + [_overall_sentence(overall, where, sp.unit)]
     if component is not None:
@@ -930,10 +936,28 @@ def _assemble(lots, model, free, tests, estimates, changes, posterior, confidenc
     if not free.converged:
         notes.append("the free lot fit stopped before the score reached its tolerance")
     verdict = "; ".join(sentences[:len(pops)]) + ". " + ". ".join(s[:1].upper() + s[1:] for s in sentences[len(pops):])
+    lines = _own_geometry_lines(lots, model, lot_moduli, lot_scales)
     return LotComparison(lots.names, sp.unit, method, confidence, probability, tuple(pops), overall, component,
                          verdict + ".", tuple(dict.fromkeys(notes)), model.extras.get("reference_geometry"),
-                         float(free.loglik - sp.n_failed * model.centre), lots,
-                         _own_geometry_lines(lots, model, moduli, scales))
+                         float(free.loglik - sp.n_failed * model.centre), lots, lines)
+
+
+def selected_parameters(model: LotModel, free, held: Sequence[int]) -> tuple[np.ndarray, np.ndarray]:
+    """(L, k) moduli and characteristic strengths of the model the tests select: the
+    populations in ``held`` (no detected change) shared by every lot, the others per lot. The
+    overall and component changes use it, so noise in unchanged populations does not pose
+    as an effect of the change."""
+    theta = free.theta
+    if held:
+        groups = []
+        for j in held:
+            groups.append([model.u_index(l, j) for l in range(model.n_lots)])
+            groups.append([model.v_index(l, j) for l in range(model.n_lots)])
+        theta = maximise(model, model._tie(*groups), [free.theta]).theta
+    k, L = model.k, model.n_lots
+    moduli = np.exp(np.array([[theta[model.u_index(l, j)] for j in range(k)] for l in range(L)]))
+    scales = np.exp(np.array([[theta[model.v_index(l, j)] for j in range(k)] for l in range(L)]) + model.centre)
+    return moduli, scales
 
 
 def _own_geometry_lines(lots, model, moduli, scales) -> tuple:

@@ -24,8 +24,10 @@ from .pivots import pivot_quantiles
 from .positions import adjusted_ranks, plotting_positions, position_rule, strength_order
 from .result import FitResult, HypothesisTest, PopulationEstimate
 from .specimens import Specimens, check_estimable
+from .bootstrap_health import MIN_USED, ratio_corrected, replicate_health
 
 NEWTON_STARTS = 3                # Newton runs from this many EM starts besides by-count
+NO_FINITE_ESTIMATE = "no finite estimate exists"   # the words a study can look for
 PROFILE_MAX_SPECIMENS = 20_000   # above this, profile and Wald intervals agree to print precision
 
 
@@ -149,8 +151,8 @@ def _regression(specimens: Specimens, j: int, rule: str, single=None, order=None
     if single is None:
         single = specimens.failed & (specimens.n_candidates == 1)
     mine = single & specimens.candidates[:, j]
-    if mine.sum() < 2:
-        return None, None
+    if mine.sum() < 2 or np.ptp(specimens.strength[mine]) <= 1e-12 * np.max(specimens.strength[mine]):
+        return None, None   # a line needs two distinct strengths
     n = specimens.n_specimens
     if mine.all():
         order = np.argsort(specimens.strength) if order is None else order
@@ -324,12 +326,12 @@ def fit_mle(
     theta = opt.theta.copy()
     u, v = theta[:k], theta[k:2 * k]
     fractions = spec.fractions(theta)
-    at_bound = u >= lik.LOG_MODULUS_MAX - 1e-9
+    at_bound = (u >= lik.LOG_MODULUS_MAX - 1e-9) | (u <= lik.LOG_MODULUS_MIN + 1e-9)
     loglik = opt.loglik - specimens.n_failed * centre  # undo the centring's Jacobian shift
     resp = _responsibilities(spec, data, theta)
     expected = resp.sum(axis=0)
 
-    complete_single = k == 1 and specimens.n_survived == 0
+    complete_single = k == 1 and specimens.n_survived == 0 and n >= 2   # pivots need two specimens
     method = _interval_method(intervals, specimens, complete_single,
                               calibratable=model == "concurrent" and not common_modulus and sized is None)
     calibration = None
@@ -347,9 +349,10 @@ def fit_mle(
 
     problems: list[str] = []
     batched = {}
-    if method == "profile" and tie is None and spec.name == "concurrent" and spec.size_offsets is None:
+    if method in ("profile", "calibrated") and tie is None and spec.name == "concurrent" and spec.size_offsets is None:
         batched = batched_profile_intervals(   # all end points in one solve (endpoints.py)
             data, opt, confidence, lower, upper, problems=problems,
+            drops=None if calibration is None else calibration.drops,
             limits=lambda i: (lik.LOG_MODULUS_MIN, lik.LOG_MODULUS_MAX) if i < k else (-np.inf, np.inf))
 
     def interval(index, limits=(-np.inf, np.inf)):
@@ -419,6 +422,7 @@ def fit_mle(
     if not opt.converged:
         notes.append("the maximisation stopped before the score reached its tolerance")
     notes.extend(_degeneracy_notes(spec, specimens, theta, at_bound))
+    notes.extend(_vanishing_notes(specimens, expected, opt.converged))
     if model != "concurrent":
         notes.extend(_collapse_notes(model, specimens, np.exp(conc.theta[:k]), m_hat, at_bound))
     partial_name = specimens.populations[spec.partial_index].name if spec.name == "partial" else None
@@ -530,6 +534,22 @@ def _collapse_notes(model: str, specimens: Specimens, concurrent_moduli, moduli,
     return notes
 
 
+VANISHING_FAILURES = 0.5   # expected failures below this, none certain: the population fades out
+
+
+def _vanishing_notes(specimens: Specimens, expected, converged: bool) -> list[str]:
+    """A population without certain failures whose share of the uncertain ones shrinks towards
+    zero: the likelihood rises as it fades (σθ → ∞), so the maximisation cannot stop."""
+    if converged:
+        return []
+    certain = specimens.certain_failures()
+    return [f"population '{name}': it has no certain failure and its expected share of the uncertain ones "
+            f"falls to {expected[j]:.2g}: the likelihood is highest with this population absent, so "
+            f"{NO_FINITE_ESTIMATE}; merge it with another population or fit without it"
+            for j, name in enumerate(specimens.population_names)
+            if certain[j] == 0 and expected[j] < VANISHING_FAILURES]
+
+
 def _degeneracy_notes(spec: lik.Model, specimens: Specimens, theta: np.ndarray, at_bound) -> list[str]:
     names = specimens.population_names
     notes = []
@@ -539,9 +559,18 @@ def _degeneracy_notes(spec: lik.Model, specimens: Specimens, theta: np.ndarray, 
                          "A mixture likelihood is unbounded when one population collapses onto a few equal-looking "
                          "strengths; this estimate is not meaningful (a known degeneracy of mixture likelihoods). "
                          "Use method='bayes' (proper priors) or the concurrent model")
+        elif theta[j] <= lik.LOG_MODULUS_MIN + 1e-9:
+            notes.append(f"population '{names[j]}': modulus reached the lower search bound "
+                         f"{np.exp(lik.LOG_MODULUS_MIN):g}: its strengths spread over too many decades for a Weibull "
+                         f"population, so {NO_FINITE_ESTIMATE} inside the bounds; check the strengths and their unit")
         else:
+            mine = specimens.failed & specimens.candidates[:, j]
+            why = ("it has a single failure" if mine.sum() < 2 else
+                   "its failure strengths are all equal (no scatter)" if np.ptp(specimens.strength[mine]) == 0
+                   else "the data do not bound it")
             notes.append(f"population '{names[j]}': modulus reached the search bound "
-                         f"{np.exp(lik.LOG_MODULUS_MAX):.0f}; the data do not bound it")
+                         f"{np.exp(lik.LOG_MODULUS_MAX):.0f}: {why}, so {NO_FINITE_ESTIMATE} (the value shown "
+                         "is the bound)")
     if spec.name != "concurrent":
         fr = spec.fractions(theta)
         for j in range(spec.k):
@@ -588,8 +617,8 @@ def attach_bootstrap(result: FitResult, replicates: int = 1000, seed=0, executor
     observed design (survivors keep their stresses, origins go unidentified as often), refitted.
 
     Adds ``draws`` (kind "bootstrap") for intervals on every derived quantity, bias-corrected
-    moduli and strengths (2·estimate − bootstrap mean), and the share of replicates in which
-    some population had no failure (dropped)."""
+    moduli and strengths (estimate² / geometric mean of the replicates, never negative), and
+    per population the share of replicates it could not be used in (bootstrap_health.py)."""
     from dataclasses import replace
 
     from .montecarlo import simulate_and_fit
@@ -608,32 +637,60 @@ def attach_bootstrap(result: FitResult, replicates: int = 1000, seed=0, executor
         raise FlawmixError("bootstrap the free-modulus concurrent fit instead of the common-modulus one")
     fits = simulate_and_fit(lik.Model("concurrent", k), result.moduli, result.characteristic_strengths, None, design,
                             replicates, seed, executor, progress=progress)
-    ok = fits.ok
-    m, s = fits.moduli[ok], fits.scales[ok]
     # Reflect each replicate through the Weibull pivots m̂/m and m̂·ln(σ̂θ/σθ) (exact for
     # complete data, DOMAIN.md section 3): the bootstrap law of (m*/m̂, m* ln(σθ*/σ̂θ)) stands
     # in for that of (m̂/m, m̂ ln(σ̂θ/σθ)). Percentiles of the reflected draws are then the
     # pivotal intervals, and every derived quantity inherits the same bias correction.
     m_hat, s_hat = result.moduli, result.characteristic_strengths
-    ratio = m / m_hat
-    pivot = m * np.log(s / s_hat)
-    m_ref = m_hat / ratio
-    s_ref = s_hat * np.exp(-pivot / m_hat)
+    names = [p.name for p in result.populations]
+    with np.errstate(all="ignore"):
+        health = replicate_health(names, fits, m_hat**2 / fits.moduli)
+    used = health.used
+    notes = list(result.warnings) + list(health.notes)
+    for line in health.notes:
+        _warnings.warn(line, FlawmixWarning, stacklevel=3)
+    extras = dict(result.extras)
+    summary = {"replicates": int(replicates), "used": int(used.sum()), "seed": seed,
+               "dropped_no_failures": float(np.mean(np.any(fits.failures == 0, axis=1))),
+               "unusable_share": health.unusable_share, "profile_fallback": list(health.fallback)}
+    if used.sum() < MIN_USED:   # nothing to build draws from: keep the fit's profile intervals
+        extras["bootstrap"] = summary
+        return replace(_with_profile(result, names), warnings=tuple(dict.fromkeys(notes)), extras=extras)
+    m, s = fits.moduli[used], fits.scales[used]
+    m_ref = m_hat**2 / m
+    s_ref = s_hat * np.exp(-(m * np.log(s / s_hat)) / m_hat)
     draws = Draws("bootstrap", m_ref, s_ref, np.ones_like(m))
     lo_q, hi_q = (1 - result.confidence) / 2, (1 + result.confidence) / 2
+    profile = _with_profile(result, health.fallback) if health.fallback else result
     pops = []
     for j, p in enumerate(result.populations):
+        if p.name in health.fallback:
+            pops.append(profile.populations[j])
+            continue
         pops.append(replace(
             p, modulus_interval=tuple(float(x) for x in np.quantile(m_ref[:, j], [lo_q, hi_q])),
             strength_interval=tuple(float(x) for x in np.quantile(s_ref[:, j], [lo_q, hi_q])),
             interval_method="parametric bootstrap (Weibull pivots)"))
-    extras = dict(result.extras)
+    m_bc, s_bc = ratio_corrected(m_hat, m), ratio_corrected(s_hat, s)
     extras["bootstrap"] = {
-        "replicates": int(replicates), "used": int(ok.sum()), "seed": seed,
-        "dropped_no_failures": float(np.mean(np.any(fits.failures == 0, axis=1))),
-        "modulus_bias_corrected": {p.name: float(2 * p.modulus - m[:, j].mean()) for j, p in enumerate(result.populations)},
-        "strength_bias_corrected": {p.name: float(2 * p.characteristic_strength - s[:, j].mean())
-                                    for j, p in enumerate(result.populations)},
-        "modulus_mean_ratio": {p.name: float(m[:, j].mean() / p.modulus) for j, p in enumerate(result.populations)},
+        **summary,
+        "modulus_bias_corrected": dict(zip(names, m_bc.tolist())),
+        "strength_bias_corrected": dict(zip(names, s_bc.tolist())),
+        "modulus_mean_ratio": {n: float(m[:, j].mean() / m_hat[j]) for j, n in enumerate(names)},
     }
-    return replace(result, populations=tuple(pops), draws=draws, extras=extras)
+    return replace(result, populations=tuple(pops), draws=draws, extras=extras, warnings=tuple(dict.fromkeys(notes)))
+
+
+def _with_profile(result: FitResult, names) -> FitResult:
+    """The fit with profile-likelihood intervals for populations ``names`` (refitted only when
+    the fit itself carries none)."""
+    from dataclasses import replace
+
+    if all(p.interval_method == "profile" for p in result.populations if p.name in names):
+        return result
+    with _warnings.catch_warnings():
+        _warnings.simplefilter("ignore", FlawmixWarning)   # already said once by the fit
+        refit = fit_mle(result.specimens, result.confidence, intervals="profile", positions=result.plotting_rule,
+                        tests=False)
+    return replace(result, populations=tuple(q if p.name in names else p
+                                             for p, q in zip(result.populations, refit.populations)))

@@ -59,6 +59,9 @@ def newton_maximise(
 
     theta = full(phi)
     ll, g, H = derivatives(theta)
+    if not (np.isfinite(ll) and np.all(np.isfinite(g)) and np.all(np.isfinite(H))):
+        # the start overflows (far out on a profile): no maximum from here, said by -inf
+        return Optimum(theta, -np.inf, np.full(J.shape[1], np.nan), np.full((J.shape[1],) * 2, np.nan), 0, False)
     gf, Hf = J.T @ g, J.T @ H @ J
     damping = 0.0
     it = 0
@@ -78,12 +81,16 @@ def newton_maximise(
             except np.linalg.LinAlgError:
                 damping = max(1e-6, damping * 10)
                 continue
+            if not np.all(np.isfinite(step)):   # an overflowing point: damp, never step to nan
+                damping = max(1e-6, damping * 10)
+                continue
             norm = np.max(np.abs(J @ step))
             if norm > 2.0:
                 step *= 2.0 / norm
             t_new = full(phi + step)
             ll_new, g_new, H_new = derivatives(t_new)
-            if np.isfinite(ll_new) and ll_new >= ll - 1e-12 * max(1.0, abs(ll)):
+            finite = np.isfinite(ll_new) and np.all(np.isfinite(g_new)) and np.all(np.isfinite(H_new))
+            if finite and ll_new >= ll - 1e-12 * max(1.0, abs(ll)):
                 improved = ll_new > ll or np.max(np.abs(J.T @ g_new)) < np.max(np.abs(gf))
                 phi, theta, ll, g, H = phi + step, t_new, ll_new, g_new, H_new
                 gf, Hf = J.T @ g, J.T @ H @ J

@@ -16,6 +16,7 @@ import numpy as np
 import pandas as pd
 
 from . import distributions as dist
+from . import support
 from .errors import FlawmixError
 from .geometry import Geometry, population_log_sizes
 from .result import FitResult, _num
@@ -199,6 +200,7 @@ def predict(
             sample_at = np.stack([dist.model_ppf("concurrent", p, draws.moduli, sc) for p in probs], axis=1)
             at[f"{label} low"], at[f"{label} high"] = _quantiles(sample_at, result.confidence)
 
+    legend = _attach_notes(result, pf, at, spec_s, comp_s, component_name)
     share_rows = []
     for s in stresses:
         hs = (s / spec_s) ** m
@@ -216,10 +218,25 @@ def predict(
         "stress analysis (reference stress and effective sizes) is accurate.",
         "Failure probabilities far below those tested are extrapolations; their uncertainty grows quickly.",
         "These numbers support, and never replace, the applicable design codes and licensed engineering judgement.",
+        *legend,
     )
     return Prediction(result.unit, names, spec_s, comp_s, sigma0, m, pf, at, shares,
                       crossovers(m, spec_s, names), crossovers(m, comp_s, names), component_name,
                       interval_kind, result.confidence, what, cautions)
+
+
+def _attach_notes(result, pf, at, spec_s, comp_s, component_name) -> list[str]:
+    """Note columns beside numbers driven by a weak population or extrapolated below the
+    lowest tested failure probability (flawmix.support), added only when some row has one;
+    returns the sentences that explain the markers."""
+    explained = []
+    for label, scales in (("specimen", spec_s), (component_name, comp_s)):
+        for table, stresses in ((pf, pf.index.to_numpy(dtype=float)), (at, at[label].to_numpy(dtype=float))):
+            notes = support.notes_at(result, scales, stresses)
+            if any(notes):
+                table[f"{label} note"] = [support.short_note(n) for n in notes]
+                explained += notes
+    return support.marker_legend(explained)
 
 
 def what_if(result: FitResult, coupon: Geometry | None, component: Geometry | None, changes: Mapping[str, float],
@@ -257,6 +274,8 @@ def what_if(result: FitResult, coupon: Geometry | None, component: Geometry | No
         s = strengths(body, m, result.characteristic_strengths)
         # a risk factor f multiplies (σ/σθ)^m, i.e. divides σθ by f^(1/m)
         s_after = s[keep] / factor[keep] ** (1 / m[keep])
+        s_changed = np.full(s.shape, np.inf)   # every population after the change (removed: no risk)
+        s_changed[keep] = s_after
         if draws is not None:
             sd = strengths(body, draws.moduli, draws.scales)
             sd_after = sd[:, keep] / factor[keep] ** (1 / draws.moduli[:, keep])
@@ -265,13 +284,18 @@ def what_if(result: FitResult, coupon: Geometry | None, component: Geometry | No
             after = dist.model_ppf("concurrent", p, m[keep][None], s_after[None])[0]
             row = {"body": label, "failure probability": p, "before": before, "after": after,
                    "gain (%)": 100 * (after / before - 1)}
+            row["note"] = support.short_note(support.join_notes(support.notes_at(result, s, [before])[0],
+                                                                support.notes_at(result, s_changed, [after])[0]))
             if draws is not None:
                 b = dist.model_ppf("concurrent", p, draws.moduli, sd)
                 a = dist.model_ppf("concurrent", p, draws.moduli[:, keep], sd_after)
                 lo, hi = _quantiles(100 * (a / b - 1), result.confidence)
                 row["gain low (%)"], row["gain high (%)"] = lo, hi
             rows.append(row)
-    return pd.DataFrame(rows).set_index(["body", "failure probability"])
+    table = pd.DataFrame(rows).set_index(["body", "failure probability"])
+    if not table["note"].astype(bool).any():
+        table = table.drop(columns="note")
+    return table
 
 
 def failure_share_curves(result: FitResult, stresses, coupon: Geometry | None = None,

@@ -114,3 +114,35 @@ def build_priors(names, centre: float, user: Mapping[str, Mapping[str, Any]] | N
             f"{np.exp(st.mean + centre + Z95 * st.sd):.4g}]" + (" (user)" if "characteristic_strength" in spec else " (default)"),
         })
     return Priors(tuple(mods), tuple(strs), reference, described)
+
+
+PRIOR_DOMINANCE = 0.8   # posterior interval this wide a share of the prior's: the prior decides
+
+
+def prior_dominance_notes(priors: Priors, names, samples: np.ndarray, confidence: float) -> list[str]:
+    """Populations whose posterior interval for ln m or ln σθ is wider than PRIOR_DOMINANCE
+    times the prior's interval at the same level: the data add little, the prior sets it.
+
+    samples: (draws, P) on the sampler's scale ([ln m_1..k, ln σθ_1..k − centre, ...])."""
+    k = len(names)
+    lo_q, hi_q = (1 - confidence) / 2, (1 + confidence) / 2
+    z = float(np.sqrt(2.0) * _erfinv(confidence))      # normal quantile of the central interval
+    notes = []
+    for j, name in enumerate(names):
+        for what, prior, column in (("modulus", priors.log_modulus[j], j),
+                                    ("characteristic strength", priors.log_strength[j], k + j)):
+            if prior is None:
+                continue
+            lo, hi = np.quantile(samples[:, column], [lo_q, hi_q])
+            ratio = float((hi - lo) / (2 * z * prior.sd))
+            if ratio > PRIOR_DOMINANCE:
+                notes.append(f"population '{name}': the posterior of its {what} is {ratio:.2f} times as wide as "
+                             f"its prior (above {PRIOR_DOMINANCE}): the prior, not the data, sets this estimate; "
+                             "state a prior from independent experience or report it as not determined by the tests")
+    return notes
+
+
+def _erfinv(x: float) -> float:
+    from scipy.special import erfinv
+
+    return float(erfinv(x))

@@ -170,6 +170,11 @@ def _check_place(out: Path) -> None:
                 raise FlawmixError(f"{out}: '{parent}' is a file, not a folder; choose another --out")
             if not os.access(parent, os.W_OK):
                 raise FlawmixError(f"{out}: no permission to write in '{parent}'; choose a writable --out")
+            try:    # the permission bits do not tell all (root, read-only mounts, /proc): try it, before the long part
+                os.rmdir(tempfile.mkdtemp(prefix=".flawmix-probe.", dir=parent))
+            except OSError as exc:
+                raise FlawmixError(f"{out}: cannot create a folder in '{parent}' ({exc.strerror or exc}); "
+                                   "choose a writable --out") from None
             return
 
 
@@ -527,6 +532,8 @@ def _what_if_wide(what_if, unit: str):
     before any change."""
     import pandas as pd
 
+    from .support import short_note
+
     t = what_if.reset_index()
     columns = list(dict.fromkeys(zip(t["body"], t["failure probability"])))
     def head(body, prob):
@@ -539,6 +546,9 @@ def _what_if_wide(what_if, unit: str):
             r = group[(group["body"] == b) & (group["failure probability"] == q)].iloc[0]
             row[head(b, q)] = (f"{fmt.stress(r['after'])} ({fmt.percent(r['gain (%)'])} % "
                                f"[{fmt.percent(r['gain low (%)'])}, {fmt.percent(r['gain high (%)'])}])")
+            marker = short_note(r.get("note"))   # a weak population or an extrapolation behind the number
+            if marker:
+                row[head(b, q)] += f" ← {marker}"
         rows.append(row)
     return pd.DataFrame(rows)
 

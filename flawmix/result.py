@@ -11,6 +11,7 @@ import pandas as pd
 
 from . import distributions as dist
 from .errors import FlawmixError
+from .support import FEW_FAILURES, UNSUPPORTED, is_weak, support_words
 
 
 def _num(x):
@@ -68,6 +69,7 @@ class PopulationEstimate:
             "name": self.name,
             "kind": self.kind,
             "n_failures": int(self.n_failures),
+            "support": support_words(self.n_failures, self.n_possible),
             "expected_failures": _num(self.expected_failures),
             "modulus": _num(self.modulus),
             "characteristic_strength": _num(self.characteristic_strength),
@@ -390,7 +392,7 @@ class FitResult:
                     f"characteristic strength ({self.unit})": p.characteristic_strength,
                     f"strength {pct} low": p.strength_interval[0], f"strength {pct} high": p.strength_interval[1],
                     "unbiased modulus": p.modulus_unbiased, "fraction": p.fraction,
-                    "interval method": p.interval_method,
+                    "interval method": p.interval_method, "support": support_words(p.n_failures, p.n_possible),
                 })
                 continue
             m = lambda x: float(fmt.modulus(x)) if x is not None and math.isfinite(x) else x
@@ -401,6 +403,8 @@ class FitResult:
                    f"σθ {hi_pct}": st(p.strength_interval[1])}
             if not self.model.startswith("concurrent"):
                 row["fraction"] = round(p.fraction, 3)
+            if any(is_weak(q.n_failures) for q in self.populations):
+                row["support"] = UNSUPPORTED if is_weak(p.n_failures) else ""
             rows.append(row)
         frame = pd.DataFrame(rows).set_index("population")
         frame.attrs["confidence"] = self.confidence
@@ -486,7 +490,10 @@ def format_result(r: FitResult, warnings: bool = True) -> str:
             f"{mi:<20}{fmt.stress(p.characteristic_strength):>8}  {si:<18}"
             + (f"{fmt.modulus(p.modulus_unbiased):>10}" if unbiased else "")
         )
-        lines[-1] = lines[-1].rstrip()
+        lines[-1] = lines[-1].rstrip() + ("  ← " + UNSUPPORTED if is_weak(p.n_failures) else "")
+    if any(is_weak(p.n_failures) for p in r.populations):
+        lines.append(f"← {UNSUPPORTED}: fewer than {FEW_FAILURES} certain failures; these estimates, and any "
+                     "prediction or what-if gain they drive, are not supported by the data")
     if not r.model.startswith("concurrent"):
         lines.append("")
         for p in r.populations:

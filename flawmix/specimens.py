@@ -477,7 +477,15 @@ def _strength_problem(cell, value: float, unit: str, delimiter: str | None) -> s
         if rest and _is_number(number) and not any(ch.isdigit() for ch in rest):
             return (f"'{s}' is not a number; write the unit once in the header ('strength ({rest.strip()})' or "
                     "--unit) and only numbers in the cells")
+        plain = s.replace(".", "").replace(",", "")
+        if "," in s and "." in s and _is_number(plain):
+            return (f"'{s}' is not a number (thousands separators?); write the stress without them, with a point "
+                    f"for decimals, like {s.replace('.', '').replace(',', '.') if s.rfind(',') > s.rfind('.') else s.replace(',', '')}")
         if "," in s and _is_number(s.replace(",", ".")):
+            digits_after = len(s) - s.rfind(",") - 1
+            if digits_after == 3 and s.count(",") >= 1 and _is_number(plain):
+                return (f"'{s}' is not a number (a thousands separator, or a decimal comma?); write "
+                        f"{plain} or {s.replace(',', '.')}, without separators")
             return (f"'{s}' is not a number (a decimal comma?); write {s.replace(',', '.')}, or save the table "
                     "with semicolons between cells so decimal commas are read")
         return f"'{s}' is not a number; write the stress as a plain number in {unit}"
@@ -550,7 +558,7 @@ def _map_origins(table: RawTable, rows: dict, pops, vocabulary: OriginVocabulary
                 unmatched.setdefault(lab, int(records[np.flatnonzero((codes == u) & failed)[0]]))
         target = "any (unidentified)" if r.decision == "unidentified" else \
             " or ".join(n for n, c in zip(names, per_origin[u]) if c)
-        origin_map.append({"origin as written": r.written if r.written.strip() else "(empty)",
+        origin_map.append({"origin as written": _as_written(r.written),
                            "read as": r.decision, "population": target, "specimens": int(counts[u])})
     if unmatched:
         listing = "; ".join(f"'{lab}' ({table.position(i)})" for lab, i in unmatched.items())
@@ -565,6 +573,16 @@ def _map_origins(table: RawTable, rows: dict, pops, vocabulary: OriginVocabulary
     return candidates, pops, {"unidentified": decision[codes] == "unidentified" if len(codes) else np.zeros(0, bool),
                               "uncertain": decision[codes] == "uncertain" if len(codes) else np.zeros(0, bool),
                               "map": origin_map, "readings": readings, "counts": counts}
+
+
+def _as_written(text: str) -> str:
+    """An origin as written, for the origin table: '(empty)' for nothing, and a note when its
+    accents are combining characters (it then looks like, and is read as, the precomposed one)."""
+    import unicodedata
+
+    if not text.strip():
+        return "(empty)"
+    return text if unicodedata.is_normalized("NFC", text) else f"{text} (combining accents)"
 
 
 def _check_user_words(pops, vocabulary: OriginVocabulary) -> None:

@@ -125,8 +125,23 @@ def _read_text(path: Path, data: bytes, checksum: str) -> RawTable:
     if start >= len(data):
         raise FlawmixError(f"{path}: the file is empty; it needs a header line with at least 'strength'")
     end = data.find(b"\n", start)
-    delimiter = sniff_delimiter(data[start:end if end >= 0 else len(data)])
+    first = data[start:end if end >= 0 else len(data)]
+    declared = _declared_delimiter(first)
+    if declared is not None:          # a spreadsheet's 'sep=;' line: it names the delimiter, and is not the header
+        if end < 0 or not data[end + 1:].strip():
+            raise FlawmixError(f"{path}: the file is empty after its 'sep=' line; it needs a header line with at "
+                               "least 'strength'")
+        skip, more = _skip_leading_blank_lines(data[end + 1:])
+        start, leading_lines = end + 1 + skip, leading_lines + 1 + more
+        end = data.find(b"\n", start)
+        first = data[start:end if end >= 0 else len(data)]
+    delimiter = declared or sniff_delimiter(first)
     body = data[start:]
+    below = _header_further_down(body[:1 << 16].decode("utf-8", errors="ignore").split("\n")[:HEADER_SEARCH])
+    if below is not None:
+        raise FlawmixError(f"{path}, line {leading_lines + below + 1}: this line looks like the header (it names the "
+                           f"strength) but line {leading_lines + 1} comes first; delete the {below} line(s) above the "
+                           "header (titles, notes) or move them below the table")
     try:
         cells = pd.read_csv(io.BytesIO(body), sep=delimiter, header=None, dtype=str, keep_default_na=False,
                             na_values=["\x00"], skip_blank_lines=False, index_col=False, quotechar='"',
@@ -139,18 +154,52 @@ def _read_text(path: Path, data: bytes, checksum: str) -> RawTable:
     header = [("" if pd.isna(c) else str(c)).strip() for c in cells.iloc[0]]
     cells = cells.iloc[1:].reset_index(drop=True)
     cells.columns = range(len(header))
-    # blank: every cell missing (empty cells read as missing), or one cell of white space only
-    blank = np.ones(len(cells), dtype=bool)
-    for j in range(1, len(header)):
-        blank &= cells[j].isna().to_numpy()
-    first = cells[0].to_numpy(dtype=object)
-    for i in np.flatnonzero(blank):
-        blank[i] = not isinstance(first[i], str) or not first[i].strip()
+    blank = _blank_records(cells, len(header))
     fields, lines = _layout(body, delimiter, leading_lines, records=len(cells) + 1)
     if np.any((fields[1:] != len(header)) & ~blank):
         _raise_field_count(path, fields, lines, delimiter, blank=np.concatenate([[False], blank]))
     return RawTable(header, cells, str(path), "line", checksum, delimiter, blank, lines=lines[1:],
                     header_line=int(lines[0]))
+
+
+def _blank_records(cells: pd.DataFrame, columns: int) -> np.ndarray:
+    """(R,) True for records whose cells are all missing or white space (',,,' and ' , , ' too).
+    Column by column, only the records still blank are looked at: one pass over a million rows
+    whose first cell is filled."""
+    blank = np.ones(len(cells), dtype=bool)
+    for j in range(columns):
+        rows = np.flatnonzero(blank)
+        if not rows.size:
+            break
+        values = cells[j].to_numpy(dtype=object)[rows]
+        filled = np.fromiter((isinstance(v, str) and bool(v.strip()) for v in values), dtype=bool, count=rows.size)
+        blank[rows[filled]] = False
+    return blank
+
+
+HEADER_SEARCH = 20      # lines (or rows) searched for a header below titles and notes
+
+
+def _names_strength(text: str) -> bool:
+    lowered = text.lower()
+    return "strength" in lowered or "σ" in lowered
+
+
+def _header_further_down(lines: list[str]) -> int | None:
+    """Index of the first line naming the strength when the first line does not (a title or
+    notes above the header), else None."""
+    if not lines or _names_strength(lines[0]):
+        return None
+    return next((i for i, line in enumerate(lines[1:], 1) if _names_strength(line)), None)
+
+
+def _declared_delimiter(line: bytes) -> str | None:
+    """The delimiter a first line 'sep=;' (written by spreadsheet programs) declares, else None."""
+    text = line.decode("utf-8", errors="replace").strip()
+    if text.lower().startswith("sep=") and len(text) in (4, 5):
+        mark = text[4:] or "\t"           # 'sep=' followed by a tab, stripped above
+        return mark if mark in DELIMITERS else None
+    return None
 
 
 def _skip_leading_blank_lines(data: bytes) -> tuple[int, int]:
@@ -236,6 +285,12 @@ def _read_workbook(path: Path, data: bytes, sheet, checksum: str) -> RawTable:
     if not len(frame):
         raise FlawmixError(f"{path}: sheet '{chosen}' is empty; choose the sheet with the specimens "
                            f"(--sheet NAME; sheets: {_sheet_listing(sheets)})")
+    rows = [" ".join("" if pd.isna(c) else str(c) for c in frame.iloc[i]) for i in range(min(len(frame), HEADER_SEARCH))]
+    below = _header_further_down(rows)
+    if below is not None:
+        raise FlawmixError(f"{path} [sheet '{chosen}'], row {first_row + below}: this row looks like the header (it "
+                           f"names the strength) but row {first_row} comes first; delete the {below} row(s) above the "
+                           "header (titles, notes) or move them below the table")
     header = [("" if pd.isna(c) else str(c)).strip() for c in frame.iloc[0]]
     cells = frame.iloc[1:].reset_index(drop=True)
     cells.columns = range(len(header))

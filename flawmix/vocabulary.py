@@ -24,8 +24,10 @@ _UNKNOWN_HINTS = ("unknown", "unident", "undeterm", "not det", "not ident", "not
 def normalise_label(text) -> str:
     """Labels match ignoring case, runs of white space and Unicode composition:
     ' Machining  Damage' == 'machining damage', and 'inclusión' typed with a combining accent
-    == the precomposed one (NFC)."""
-    return re.sub(r"\s+", " ", unicodedata.normalize("NFC", str(text))).strip().lower()
+    == the precomposed one (NFC); invisible format characters (zero-width space, soft hyphen)
+    are dropped."""
+    text = "".join(ch for ch in unicodedata.normalize("NFC", str(text)) if unicodedata.category(ch) != "Cf")
+    return re.sub(r"\s+", " ", text).strip().lower()
 
 
 def _squeeze(text: str) -> str:

@@ -221,3 +221,17 @@ def test_independence_proposal_is_used_and_matches_the_exact_posterior():
     exact = _grid_posterior_quantiles(s, [0.05, 0.5, 0.95])
     ours = np.quantile(r.draws.moduli[:, 0], [0.05, 0.5, 0.95])
     np.testing.assert_allclose(ours, exact, rtol=0.03)   # Monte Carlo error with ESS >= 1000: 1-2 %
+
+
+def test_low_acceptance_of_the_independence_proposal_falls_back_to_de_moves(monkeypatch):
+    # forced: every run counts as rarely accepted, so the fit is redone with DE moves alone
+    # (their full burn-in) and must still match the brute-force grid posterior
+    import flawmix.bayes as bayes
+
+    monkeypatch.setattr(bayes, "INDEPENDENCE_MIN_ACCEPTANCE", 1.01)
+    rng = np.random.default_rng(41)
+    s = 350 * rng.weibull(9, 12)
+    r = fit_bayes(fm.read_specimens(pd.DataFrame({"strength": s})), reference_prior=True, loo=False, seed=1)
+    assert r.extras["burn_in"] >= 500
+    exact = _grid_posterior_quantiles(s, [0.05, 0.5, 0.95])
+    np.testing.assert_allclose(np.quantile(r.draws.moduli[:, 0], [0.05, 0.5, 0.95]), exact, rtol=0.03)

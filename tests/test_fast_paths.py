@@ -159,13 +159,23 @@ def test_labelled_common_modulus_is_the_pooled_censored_fit_of_scipy():
 
 
 def test_fit_intervals_equal_the_general_path():
+    from flawmix.calibration import calibrate
+
     frame = simulate_campaign(np.random.default_rng(21), n=30)
-    result = fm.fit(frame)
     sp, data, centre, opt, deriv, lower, upper = _fit_parts(frame)
+    calibrated = fm.fit(frame)   # the default: calibrated cut-offs from a seeded bootstrap (seed 0)
+    drops = calibrate(sp, calibrated.moduli, calibrated.characteristic_strengths, 0.90, seed=0).drops
+    for result, cut in ((fm.fit(frame, intervals="profile"), None), (calibrated, drops)):
+        _check_intervals(result, opt, deriv, lower, upper, centre, cut)
+
+
+def _check_intervals(result, opt, deriv, lower, upper, centre, drops):
     for j, pop in enumerate(result.populations):
         m_lo, m_hi = profile_interval(deriv, opt, j, 0.90, lower=lower, upper=upper,
-                                      limits=(lik.LOG_MODULUS_MIN, lik.LOG_MODULUS_MAX))
-        s_lo, s_hi = profile_interval(deriv, opt, 2 + j, 0.90, lower=lower, upper=upper)
+                                      limits=(lik.LOG_MODULUS_MIN, lik.LOG_MODULUS_MAX),
+                                      drops=None if drops is None else tuple(drops[j]))
+        s_lo, s_hi = profile_interval(deriv, opt, 2 + j, 0.90, lower=lower, upper=upper,
+                                      drops=None if drops is None else tuple(drops[2 + j]))
         np.testing.assert_allclose(np.log(pop.modulus_interval), [m_lo, m_hi], atol=2e-9)
         np.testing.assert_allclose(np.log(pop.strength_interval), np.array([s_lo, s_hi]) + centre, atol=2e-9)
 
@@ -188,3 +198,35 @@ def test_many_small_labelled_populations_equal_the_general_path():
     for i in (0, 5, 11, 12, 17, 23):
         general = profile_interval(deriv, opt, i, 0.90, lower=lower, upper=upper, limits=limits(i))
         np.testing.assert_allclose(batched[i], general, rtol=0, atol=2e-9)
+
+
+@pytest.mark.parametrize("unknown", [0.0, 0.25])
+def test_batched_end_points_with_a_drop_per_parameter_equal_the_bracketing_search(unknown):
+    # calibrated cut-offs: a different (below, above) drop for every parameter
+    frame = simulate_campaign(np.random.default_rng(31), n=40, unknown=unknown, survive_at=440.0)
+    _, data, _, opt, deriv, lower, upper = _fit_parts(frame)
+    drops = np.array([[1.1, 1.7], [1.5, 1.2], [1.3, 1.4], [1.9, 1.0]])
+    limits = lambda i: (lik.LOG_MODULUS_MIN, lik.LOG_MODULUS_MAX) if i < 2 else (-np.inf, np.inf)
+    batched = batched_profile_intervals(data, opt, 0.90, lower, upper, drops=drops, limits=limits)
+    for i in range(4):
+        general = profile_interval(deriv, opt, i, 0.90, lower=lower, upper=upper, limits=limits(i),
+                                   drops=tuple(drops[i]))
+        np.testing.assert_allclose(batched[i], general, rtol=0, atol=2e-9)
+
+
+@pytest.mark.parametrize("seed, survive_at, n", [(0, None, 30), (1, 430.0, 30), (3, 440.0, 60)])
+def test_labelled_calibration_equals_the_general_refits(seed, survive_at, n, monkeypatch):
+    # the closed-form refits of labelled bootstrap campaigns give the cut-offs, refits and
+    # covariances the batched ascent on the joint likelihood gives (forced by hiding that
+    # the campaigns are labelled)
+    from flawmix import calibration
+
+    sp = fm.read_specimens(simulate_campaign(np.random.default_rng(seed), n=n, survive_at=survive_at))
+    fitted = fm.fit(sp, intervals="none")
+    closed = calibration.calibrate(sp, fitted.moduli, fitted.characteristic_strengths, 0.90, seed=0)
+    monkeypatch.setattr(lik.Data, "certain", property(lambda self: False))
+    general = calibration.calibrate(sp, fitted.moduli, fitted.characteristic_strengths, 0.90, seed=0)
+    np.testing.assert_allclose(closed.drops, general.drops, rtol=0, atol=1e-9)
+    np.testing.assert_allclose(closed.signed_roots, general.signed_roots, rtol=0, atol=1e-7)
+    np.testing.assert_allclose(closed.theta, general.theta, rtol=0, atol=1e-6)     # ascent stops at |score| 1e-6
+    np.testing.assert_allclose(closed.covariance, general.covariance, rtol=1e-5, atol=1e-9)

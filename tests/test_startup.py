@@ -41,8 +41,11 @@ BARE = set(HEAVY) | {"pandas", "scipy"}   # help text needs nothing numerical
     (["size", "flexure-4pt", "--width", "4", "--depth", "3", "--outer-span", "40", "--inner-span", "20",
       "--modulus", "10", "--json"], LIGHT),
     (["plan", "--help"], BARE),
+    (["lots", "--help"], BARE),
     (["--help"], BARE),
-], ids=["fit", "size", "plan-help", "help"])
+    # a Bayesian fit samples with emcee, but its diagnostics and PSIS-LOO are numpy: no arviz
+    (["fit", DEMO, "--method", "bayes", "--json"], {"arviz", "matplotlib", "xarray"}),
+], ids=["fit", "size", "plan-help", "lots-help", "help", "fit-bayes"])
 def test_command_imports_only_what_it_needs(argv, absent):
     assert not _imported(argv) & absent
 

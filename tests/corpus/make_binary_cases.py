@@ -53,6 +53,7 @@ def main() -> None:
         z.writestr("hello.txt", "not a workbook")
     write("excel/zip_not_workbook.xlsx", damaged.getvalue())
     write("excel/empty_sheet.xlsx", workbook({"Empty": [], "Bars": bars}))
+    write("excel/title_rows.xlsx", workbook({"Bars": [["Flexure campaign, lot 7"], ["operator", "JB"], [None]] + bars}))
 
 
 if __name__ == "__main__":
