@@ -19,8 +19,6 @@ CALIBRATED_METHOD = "profile (bootstrap-calibrated cut-off)"
 DEFAULT_REPLICATES = 400
 MAX_SPECIMENS = 3000     # beyond this the χ² cut-off is accurate and the refits cost more
 SIGNED_ROOT_CLIP = 8.0   # a refit at the modulus bound must not dominate the spread
-import os
-DROP_RULE = os.environ.get('FLAWMIX_DROP_RULE', 'moments')
 ASCENT_STEPS = 20       # Newton steps from the truth; a refit still climbing after them is creeping
                         # towards an infinite modulus, and its signed root is already large
 
@@ -163,8 +161,10 @@ def calibrate(specimens, moduli, scales, confidence: float, replicates: int = DE
             theta[rest], roots[rest], hessian[rest] = _refits(
                 lik.Data(data.y[rest], data.failed[rest], data.candidates[rest]), theta_hat - shift)
     else:
-        theta, roots, hessian = _refits(data, theta_hat - shift)
-    roots = np.clip(roots, -SIGNED_ROOT_CLIP, SIGNED_ROOT_CLIP)
+        # refits creeping towards an infinite modulus overflow; such rows are left out below
+        with np.errstate(over="ignore", invalid="ignore"):
+            theta, roots, hessian = _refits(data, theta_hat - shift)
+    roots = np.clip(np.where(np.isfinite(roots), roots, np.nan), -SIGNED_ROOT_CLIP, SIGNED_ROOT_CLIP)
     return Calibration(theta_hat, theta + shift, _inverse_information(hessian), roots,
                        signed_root_drops(roots, confidence), int(ok.sum()), int(replicates), seed)
 
@@ -177,12 +177,11 @@ def signed_root_drops(roots: np.ndarray, confidence: float) -> np.ndarray:
     (r − mean)/sd is normal to higher order. The interval {ψ: lo <= r(ψ) <= hi} with
     lo/hi = mean ± z·sd has its lower end where r = hi and its upper end where r = lo.
     """
-    if DROP_RULE == "quantiles":
-        lo, hi = np.quantile(roots, [(1 - confidence) / 2, (1 + confidence) / 2], axis=0)
-    else:
-        z = float(_sstats.norm.ppf(0.5 + confidence / 2))
-        mean, sd = roots.mean(axis=0), roots.std(axis=0, ddof=1)
-        hi, lo = mean + z * sd, mean - z * sd
+    # (empirical 5 %/95 % quantiles of the roots gave coverage within one binomial SE of this
+    # rule in the study's small cell, 200 sets, with more Monte Carlo noise per data set)
+    z = float(_sstats.norm.ppf(0.5 + confidence / 2))
+    mean, sd = np.nanmean(roots, axis=0), np.nanstd(roots, axis=0, ddof=1)
+    hi, lo = mean + z * sd, mean - z * sd
     return np.stack([0.5 * np.maximum(hi, 1e-3) ** 2, 0.5 * np.maximum(-lo, 1e-3) ** 2], axis=1)
 
 
