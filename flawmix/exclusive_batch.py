@@ -71,7 +71,7 @@ def fit_exclusive_batch(data: lik.Data, iterations: int = 300, tol: float = 1e-9
         fraction = np.clip(resp.mean(axis=1), 1e-12, None)
         yk = np.broadcast_to(data.y[:, None, :], (R, k, N))
         fk = np.broadcast_to(data.failed[:, None, :], (R, k, N))
-        u, v = weighted_weibull_mle(yk, fk, np.transpose(resp, (0, 2, 1)))
+        u, v = weighted_weibull_mle(yk, fk, np.ascontiguousarray(np.transpose(resp, (0, 2, 1))))
         joint = _joint(data, u, v, np.log(fraction))
         top = joint.max(-1, keepdims=True)
         e = np.exp(joint - top)
