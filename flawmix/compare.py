@@ -254,13 +254,27 @@ def compare(
         several = rejects(single_test.p_value)
         preferred = next(n for n in order if n != "single") if several else "single"
         verdict = (population_count_verdict(single_test.p_value, SINGLE_TEST) + " "
-                   + (f"Among the models with several populations '{preferred}' ranks first. " if several else "")
+                   + (f"Among the models with several populations '{preferred}' ranks first. " if several else
+                      _single_alternatives_note(tests))
                    + "Scores: " + verdict)
     if excluded:
         verdict += (f" Not ranked: {', '.join(repr(n) for n in excluded)} (degenerate maximum likelihood; "
                     "run the comparison with Bayesian fits to score them by PSIS-LOO).")
     return Comparison(table, preferred, verdict, tuple(tests), {**fits, **{f"{n} (bayes)": b for n, b in bayes_fits.items()}},
                       criterion)
+
+
+def _single_alternatives_note(tests) -> str:
+    """When one pooled population is kept but a test against one alternative alone rejects
+    it, say why the two readings differ (so the verdict agrees with every test it reports)."""
+    alone = [t for t in tests if t.name in ("single-vs-concurrent", "single-vs-exclusive") and rejects(t.p_value)]
+    if not alone:
+        return ""
+    said = " and ".join(f"'{t.name.split('-vs-')[1]}' (p = {t.p_value:.2g})" for t in alone)
+    tests_word = "the χ² tests" if len(alone) > 1 else "the χ² test"
+    return (f"On their own, {tests_word} against {said} reject one population at the 5 % level; the bootstrap test above "
+            "allows for trying both alternatives and decides, so the evidence for several populations is "
+            "suggestive, not established. ")
 
 
 def _verdict(table, order, bayes, bayes_fits, specimens) -> str:

@@ -141,3 +141,16 @@ def test_one_population_verdict_is_calibrated_and_keeps_power(truth):
         assert rate >= 0.90
     else:
         assert rate <= 0.10
+
+
+def test_kept_single_population_names_the_alternative_tests_that_reject_alone():
+    """A verdict that keeps one population must not sit silently next to a χ² test it reports
+    as rejecting: it names that test and why the bootstrap test decides."""
+    from flawmix.compare import _single_alternatives_note
+    from flawmix.result import HypothesisTest
+
+    tests = [HypothesisTest("single-vs-concurrent", 6.3, 2, 0.042, "likelihood ratio, χ²", ""),
+             HypothesisTest("single-vs-exclusive", 5.0, 4, 0.29, "likelihood ratio, χ²", "")]
+    note = _single_alternatives_note(tests)
+    assert "'concurrent' (p = 0.042)" in note and "exclusive" not in note.split("reject")[0]
+    assert _single_alternatives_note(tests[1:]) == ""
