@@ -534,17 +534,18 @@ def _collapse_notes(model: str, specimens: Specimens, concurrent_moduli, moduli,
     return notes
 
 
-VANISHING_FAILURES = 0.5   # expected failures below this, none certain: the population fades out
+VANISHING_FAILURES = 1.0   # expected failures below this, none certain: the population carries < 1 failure
 
 
 def _vanishing_notes(specimens: Specimens, expected, converged: bool) -> list[str]:
-    """A population without certain failures whose share of the uncertain ones shrinks towards
-    zero: the likelihood rises as it fades (σθ → ∞), so the maximisation cannot stop."""
+    """A population without certain failures that carries less than one failure in
+    expectation: the likelihood rises as it fades out (σθ → ∞) or shrinks onto a single
+    uncertain failure (m → ∞), so the maximisation cannot stop at a finite point."""
     if converged:
         return []
     certain = specimens.certain_failures()
-    return [f"population '{name}': it has no certain failure and its expected share of the uncertain ones "
-            f"falls to {expected[j]:.2g}: the likelihood is highest with this population absent, so "
+    return [f"population '{name}': it has no certain failure and carries {expected[j]:.2g} of the uncertain ones "
+            f"(less than one failure): the likelihood rises as it fades out or shrinks onto a single failure, so "
             f"{NO_FINITE_ESTIMATE}; merge it with another population or fit without it"
             for j, name in enumerate(specimens.population_names)
             if certain[j] == 0 and expected[j] < VANISHING_FAILURES]

@@ -2,7 +2,7 @@
 (flawmix/campaigns.py: N 5-500, modulus 2-60, 1-4 populations, 0-50 % unidentified, 0-20 %
 survivors). For every campaign: does the fit converge, or say that no finite estimate exists
 (or refuse with a FlawmixError naming the population without failures)? Does any library
-warning escape? Every ``invariance_every``-th campaign is refitted with its stresses in units
+warning escape? Every ``invariance_every``-th campaign with a converged, finite fit is refitted with its stresses in units
 1e-6 and 1e+6 times as large (12 decades): moduli, σθ / c and the log-likelihood shift
 n_failed · ln c must agree to 1e-9.
 
@@ -71,8 +71,8 @@ def run(count=10_000, first=0, intervals="none", invariance_every=10, echo=True)
         else:
             outcome["NOT converged, nothing said"] += 1
             unexplained.append(seed)
-        if i % invariance_every == 0:
-            invariance.append(_invariance_error(specimens, result, intervals))
+        if i % invariance_every == 0 and result.converged and not bound:   # finite estimates only: a
+            invariance.append(_invariance_error(specimens, result, intervals))  # run-away point is arbitrary
         if (i + 1) % 1000 == 0:
             print(f"{i + 1} campaigns, {time.time() - start:.0f} s", file=sys.stderr, flush=True)
     inv = np.array(invariance)
