@@ -544,8 +544,9 @@ def _what_if_wide(what_if, unit: str):
         row = {"change": change}
         for b, q in columns:
             r = group[(group["body"] == b) & (group["failure probability"] == q)].iloc[0]
-            row[head(b, q)] = (f"{fmt.stress(r['after'])} ({fmt.percent(r['gain (%)'])} % "
-                               f"[{fmt.percent(r['gain low (%)'])}, {fmt.percent(r['gain high (%)'])}])")
+            low, high = r.get("gain low (%)"), r.get("gain high (%)")   # absent when the fit has no draws
+            band = "" if low is None or pd.isna(low) else f" [{fmt.percent(low)}, {fmt.percent(high)}]"
+            row[head(b, q)] = f"{fmt.stress(r['after'])} ({fmt.percent(r['gain (%)'])} %{band})"
             marker = short_note(r.get("note"))   # a weak population or an extrapolation behind the number
             if marker:
                 row[head(b, q)] += f" ← {marker}"
