@@ -396,7 +396,8 @@ def partial_pointwise(data: Data, log_modulus, log_scale, logit_fraction, partia
     log_p = -np.logaddexp(0.0, -t)        # ln p
     log_q = -np.logaddexp(0.0, t)         # ln (1 − p)
     H_a = H[..., a]
-    H_rest = _last_axis(np.add, H)[..., 0] - H_a
+    with np.errstate(invalid="ignore"):   # inf − inf where H_a overflows: nan, caught as non-finite
+        H_rest = _last_axis(np.add, H)[..., 0] - H_a
     mix = np.logaddexp(log_q, log_p - H_a)           # ln[(1 − p) + p S_A]
     terms = logh + (mix - H_rest)[..., None]
     terms[..., a] = log_p + logh[..., a] - H_a - H_rest

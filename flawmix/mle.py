@@ -377,8 +377,9 @@ def fit_mle(
             if b >= lik.LOG_MODULUS_MAX - 1e-9:
                 b = np.inf
             c, d = interval(k + j)
-            mod_int.append((float(np.exp(a)), float(np.exp(b))))
-            str_int.append((float(np.exp(c + centre)), float(np.exp(d + centre))))
+            with np.errstate(over="ignore"):   # an end far out is +inf: shown as unbounded
+                mod_int.append((float(np.exp(a)), float(np.exp(b))))
+                str_int.append((float(np.exp(c + centre)), float(np.exp(d + centre))))
     if method in ("profile", "wald") and spec.n_extra == 1:   # (calibration is concurrent only)
         lo_t, hi_t = interval(2 * k, (-30.0, 30.0))
         sig = lambda t: float(1.0 / (1.0 + np.exp(-t)))
