@@ -5,15 +5,17 @@ import numpy as np
 
 
 def weibull_cumulative_hazard(stress, modulus, scale):
-    """(σ/σθ)^m, broadcasting stress against parameters."""
-    return (np.asarray(stress, dtype=float) / scale) ** modulus
+    """(σ/σθ)^m, broadcasting stress against parameters (inf where it overflows: certain failure)."""
+    with np.errstate(over="ignore"):
+        return (np.asarray(stress, dtype=float) / scale) ** modulus
 
 
 def _log_terms(stress, moduli, scales):
     s = np.asarray(stress, dtype=float)[..., None]
     m = np.asarray(moduli, dtype=float)
     sc = np.asarray(scales, dtype=float)
-    H = (s / sc) ** m
+    with np.errstate(over="ignore"):   # an overflowing hazard is certain failure, not an error
+        H = (s / sc) ** m
     logh = np.log(m) + (m - 1.0) * np.log(s) - m * np.log(sc)
     return H, logh
 

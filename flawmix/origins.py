@@ -282,7 +282,8 @@ def origin_probabilities(result, threshold: float = CHECK_THRESHOLD, method: str
     label = np.full(rows.size, np.nan)
     own = sp.candidates[l_rows].argmax(axis=1)
     label[u_rows.size:] = l_point[np.arange(l_rows.size), own]
-    frame = pd.DataFrame({"specimen": sp.ids[rows], "strength": sp.strength[rows],
+    ids = sp.ids if sp.ids is not None else np.array([str(i + 1) for i in range(sp.strength.size)], dtype=object)
+    frame = pd.DataFrame({"specimen": ids[rows], "strength": sp.strength[rows],
                           "origin": sp.origin[rows] if sp.origin is not None else "", "reading": reading})
     for j, name in enumerate(names):
         frame[name] = probs[:, j]

@@ -302,3 +302,14 @@ def test_fit_text_lists_every_open_origin_with_the_api_probabilities(capsys):
         line = next(ln for ln in out.splitlines() if ln.strip().startswith(f"{row['specimen']}:"))
         for name in [p.name for p in result.populations]:
             assert f"{name} {row[name]:.2f}" in line
+
+
+def test_origin_probabilities_without_specimen_ids_number_the_rows():
+    """Specimens built without ids still export origin probabilities (rows numbered from 1)."""
+    import dataclasses
+
+    rng = np.random.default_rng(5)
+    frame = simulate_campaign(rng, n=40, unknown=0.25)
+    sp = dataclasses.replace(fm.read_specimens(frame), ids=None)
+    exported = fm.fit(sp, intervals="none").to_dict()["origin_probabilities"]
+    assert exported and all(row["specimen"].isdigit() for row in exported)

@@ -332,3 +332,16 @@ def test_bottom_line_says_when_the_component_limit_rests_on_a_weak_population():
     line = bottom_line(result, prediction, load=100.0)
     limit = [f for f in line.findings if "limits it at" in f][0]
     assert "'rare' limits it" in limit and "unsupported: 'rare' has only 3 certain failures" in limit
+
+
+def test_overflowing_hazard_is_certain_failure_without_a_numpy_warning():
+    """(σ/σθ)^m beyond the float range means certain failure: survival 0, no RuntimeWarning."""
+    import warnings
+
+    from flawmix.distributions import model_sf
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        sf = model_sf("concurrent", [1e3, 1e9], [50.0, 10.0], [1.0, 2.0])
+        sf_ex = model_sf("exclusive", [1e9], [60.0, 10.0], [1.0, 2.0], fractions=[0.5, 0.5])
+    assert np.all(sf == 0.0) and sf_ex[0] == 0.0
