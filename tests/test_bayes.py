@@ -174,6 +174,15 @@ def _chains(rng, chains, draws, phi, repeat):
     return x
 
 
+# flawmix's numpy diagnostics follow Vehtari et al. (2021) and PSIS (Vehtari et al. 2024) as
+# arviz 0.x implements them, and equal it to 1e-10 (the Python 3.11 run). arviz 1.x
+# (arviz-stats) re-implemented tail ESS, PSIS and the LOO standard error with other details:
+# measured on these draws, tail ESS up to 47 % apart on chains with many repeated values, the
+# LOO standard error 1–2 % apart (n − 1 in the variance) and elpd within 0.4 %. R-hat and bulk
+# ESS still agree with arviz 1.x to 1e-10; the rest is compared on the arviz 0.x line only.
+ARVIZ_1_DIFFERS = "arviz 1.x computes tail ESS and PSIS-LOO with other conventions; compared with arviz 0.x"
+
+
 @pytest.mark.parametrize("phi, repeat, shift", [(0.0, 0.0, 0.0), (0.6, 0.4, 0.0), (0.95, 0.2, 0.3)])
 def test_own_diagnostics_equal_arviz(phi, repeat, shift):
     # Reference: arviz (rank-normalised split R-hat, bulk and tail ESS; Pareto k of PSIS) on
@@ -187,6 +196,8 @@ def test_own_diagnostics_equal_arviz(phi, repeat, shift):
     data = az.convert_to_dataset({"a": x})
     assert diagnostics.r_hat(x) == pytest.approx(float(az.rhat(data)["a"]), rel=1e-10)
     assert diagnostics.ess_bulk(x) == pytest.approx(float(az.ess(data, method="bulk")["a"]), rel=1e-10)
+    if _arviz.major_version() >= 1:
+        pytest.skip(ARVIZ_1_DIFFERS)
     assert diagnostics.ess_tail(x) == pytest.approx(float(az.ess(data, method="tail")["a"]), rel=1e-10)
     log_weights = rng.standard_t(2 + 10 * phi, 3000)
     assert diagnostics.pareto_k(log_weights) == pytest.approx(float(az.psislw(log_weights)[1]), rel=1e-10)
@@ -202,6 +213,8 @@ def test_psis_loo_equals_arviz(draws, spread):
     mu = spread * rng.standard_normal((16, draws, 1))
     y = 2.0 * rng.standard_normal(25)
     ll = -0.5 * (y - mu) ** 2 - 0.5 * np.log(2 * np.pi)
+    if _arviz.major_version() >= 1:
+        pytest.skip(ARVIZ_1_DIFFERS)
     ours, ref = diagnostics.psis_loo(ll), _arviz.loo(ll)
     assert ours["elpd_loo"] == pytest.approx(ref["elpd_loo"], rel=1e-12)
     assert ours["se"] == pytest.approx(ref["se"], rel=1e-10)
