@@ -494,10 +494,13 @@ def section_limits(a: Analysis, figs, tables) -> list[str]:
         cname, body = a.component
         out.append(figs.add("failure_shares", plots.failure_share_plot(main, coupon=a.coupon, component=body,
                                                                       component_name=cname).figure,
-                            f"Share of failures from each population: test specimen (solid) and {cname} (dashed)."))
+                            f"Share of failures from each population: test specimen (solid) and {cname} (dashed). "
+                            "These are shares of the failures at each stress (hazard rates); the "
+                            "'dominates' stresses below are where cumulative risks cross, so they differ."))
     else:
         out.append(figs.add("failure_shares", plots.failure_share_plot(main).figure,
-                            "Share of failures from each population across stress."))
+                            "Share of failures from each population across stress (hazard rates); the "
+                            "'dominates' stresses below are where cumulative risks cross, so they differ."))
     names = [p.name for p in main.populations]
     s = main.specimens.strength
     sides = [("test specimen", dominance_changes(main.moduli, main.characteristic_strengths, names,
