@@ -6,6 +6,7 @@ failed, and for each failure the set of populations that could have caused it.
 from __future__ import annotations
 
 import difflib
+from functools import cached_property
 from pathlib import Path
 from dataclasses import dataclass, field
 from typing import Mapping
@@ -122,10 +123,11 @@ class Specimens:
     def population_names(self) -> tuple[str, ...]:
         return tuple(p.name for p in self.populations)
 
-    @property
+    @cached_property
     def n_candidates(self) -> np.ndarray:
-        """(N,) number of candidate populations of each specimen (0 for survivors)."""
-        return self.candidates.sum(axis=1)
+        """(N,) number of candidate populations of each specimen (0 for survivors); computed
+        once (candidates are read-only), since a fit asks for it many times."""
+        return _read_only(self.candidates.sum(axis=1))
 
     @property
     def n_unidentified(self) -> int:
