@@ -15,7 +15,7 @@ from . import progress as _progress
 from . import diagnostics
 from . import likelihood as lik
 from .errors import FlawmixError, FlawmixWarning
-from .mle import _centred_data, fit_mle
+from .mle import _centred_data, common_modulus_tie, fit_mle
 from .priors import build_priors, prior_dominance_notes
 from .result import Draws, FitResult, PopulationEstimate
 from .specimens import Specimens
@@ -149,9 +149,7 @@ def fit_bayes(
     n_walkers = walkers or max(32, 4 * P)
     rng = np.random.default_rng(seed)
     if common_modulus:   # the Hessian in [u, v_1..v_k]: J^T H J with J the tie (one u for all)
-        tie = np.zeros((2 * k, P))
-        tie[:k, 0] = 1.0
-        tie[k:, 1:] = np.eye(k)
+        tie = common_modulus_tie(k)
         hess = tie.T @ lik.numerical_derivatives(spec, data, expand(theta_mle))[2] @ tie
     else:
         hess = lik.numerical_derivatives(spec, data, theta_mle)[2]

@@ -5,6 +5,7 @@ l's specimens), so the one likelihood (flawmix/likelihood.py) serves every hypot
 from __future__ import annotations
 
 import math
+import textwrap
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Mapping, Sequence
@@ -1058,8 +1059,6 @@ def format_comparison(c: LotComparison) -> str:
                      + (f"; P(σθ rose) {_probability_words(ch['probability_stronger'])}"
                         if "probability_stronger" in ch else ""))
         lines.append("")
-    import textwrap
-
     lines.append(textwrap.fill("Verdict: " + c.verdict, width=92, subsequent_indent="  ", break_on_hyphens=False))
     return "\n".join(lines)
 
