@@ -132,3 +132,60 @@ def weibull_regression(log_strength_failures, probabilities):
     slope = float(np.dot(dx, yy - yy.mean()) / np.dot(dx, dx))
     intercept = float(yy.mean() - slope * x.mean())
     return slope, float(np.exp(-intercept / slope))
+
+
+def common_modulus_censored_mle(groups, *, tol: float = 1e-12, max_iter: int = 100):
+    """Censored Weibull MLE of G groups sharing one modulus, each with its own scale.
+
+    groups: sequence of (log_strength, failure_weight) pairs, each (..., N_g) with the same
+    leading dims (the groups may differ in N_g). With σθ_g^m = Σ_g σ^m / r_g in closed form
+    the profile score in m is
+        Σ_g r_g ⟨ln σ⟩_{g,m} − Σ_g Σ_fail w ln σ − R/m = 0,   ⟨x⟩_{g,m} = Σ_g σ^m x / Σ_g σ^m,
+    which increases with m (its derivative is Σ_g r_g Var_{g,m} + R/m² > 0), so one
+    safeguarded Newton iteration in ln m finds the unique root; it is the single-group
+    equation of :func:`censored_weibull_mle` when G = 1. No root (every failure at its group's
+    largest strength) leaves the modulus at the search bound.
+    Returns (log_modulus (...), log_scales (..., G), at_bound (...)).
+    """
+    ys = [np.asarray(y, dtype=float) for y, _ in groups]
+    ws = [np.broadcast_to(np.asarray(w, dtype=float), y.shape) for y, (_, w) in zip(ys, groups)]
+    shape = ys[0].shape[:-1]
+    tops = [y.max(axis=-1, keepdims=True) for y in ys]
+    xs = [y - t for y, t in zip(ys, tops)]                  # <= 0 per group: no overflow
+    r = [w.sum(axis=-1) for w in ws]
+    R = sum(r)
+    failure_sum = sum((w * x).sum(axis=-1) for w, x in zip(ws, xs))   # Σ w (ln σ − top_g) <= 0
+    with np.errstate(invalid="ignore", divide="ignore"):
+        spread = sum((w * (x - ((w * x).sum(-1) / rg)[..., None]) ** 2).sum(-1)
+                     for w, x, rg in zip(ws, xs, r)) / R
+        u = np.log(np.clip(1.2825 / np.sqrt(np.where(spread > 0, spread, 1e-12)), 0.1, 900.0))
+    u = np.broadcast_to(u, shape).copy()
+    unbounded = ~(failure_sum < -1e-15 * np.maximum(1.0, sum(np.abs(t[..., 0]) for t in tops)))
+    u = np.where(unbounded, LOG_MODULUS_MAX, u)
+    lo, hi = np.full(shape, LOG_MODULUS_MIN), np.full(shape, LOG_MODULUS_MAX)
+    active = ~unbounded & (R > 0)
+    for _ in range(max_iter):
+        if not active.any():
+            break
+        m = np.exp(u)
+        g, slope = -failure_sum - R / m, R / m ** 2
+        for x, rg in zip(xs, r):
+            e = np.exp(m[..., None] * x)
+            s0 = e.sum(axis=-1)
+            mean = (e * x).sum(axis=-1) / s0
+            g = g + rg * mean
+            slope = slope + rg * ((e * x * x).sum(axis=-1) / s0 - mean * mean)
+        lo = np.where(active & (g < 0), u, lo)
+        hi = np.where(active & (g > 0), u, hi)
+        step = np.clip(-g / (m * slope), -1.0, 1.0)
+        done = (np.abs(g) * m <= tol * np.maximum(1.0, R)) | (np.abs(step) <= 1e-15)
+        new = u + step
+        outside = ((new < lo) | (new > hi)) & ~done
+        new = np.where(outside, 0.5 * (lo + hi), new)
+        u = np.where(active, new, u)
+        active &= ~done
+    m = np.exp(u)
+    with np.errstate(divide="ignore"):
+        v = np.stack([t[..., 0] + np.log(np.exp(m[..., None] * x).sum(axis=-1) / rg) / m
+                      for x, t, rg in zip(xs, tops, r)], axis=-1)
+    return u, v, unbounded

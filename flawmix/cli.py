@@ -561,9 +561,10 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--probability", type=float,
                    help="failure probability at which stresses are also compared (default the study's [component] "
                         "target_probability, else 0.01)")
-    p.add_argument("--calibrate", type=int, default=0, metavar="N",
-                   help="parametric-bootstrap replicates per test for calibrated p-values (default 0: χ²; the χ² "
-                        "p-values are a little liberal at 30 specimens per lot, see README)")
+    p.add_argument("--calibrate", type=int, default=None, metavar="N",
+                   help="parametric-bootstrap replicates per test (default: 999 when every origin is identified "
+                        "and the lots share one geometry, else the χ² reference; 0: χ² always, which is a "
+                        "little liberal at 30 specimens per lot, see README)")
     p.add_argument("--seed", type=int, help="seed of the sampler and the calibration (default: the study file's, else 0)")
     p.add_argument("--plot", help="save the probability plots of the lots, population by population, to this PNG/SVG")
     p.add_argument("--force", action="store_true", help="replace an existing --plot file")

@@ -268,7 +268,7 @@ def test_cli_json_has_the_promised_shape(two_lots, tmp_path, capsys):
     assert {"name", "by_lot", "same_population", "same_modulus", "strength_change"} <= set(p)
     assert set(p["by_lot"][0]) == {"lot", "n_failures", "modulus", "characteristic_strength", "modulus_interval",
                                    "strength_interval"}
-    assert {"statistic", "df", "p_value"} == set(p["same_population"]) == set(p["same_modulus"])
+    assert {"statistic", "df", "p_value", "reference"} == set(p["same_population"]) == set(p["same_modulus"])
     assert {"from", "to", "ratio", "ratio_interval"} <= set(p["strength_change"])
 
 
@@ -368,7 +368,7 @@ def test_calibrated_p_values_come_from_the_null_fits_bootstrap(two_lots):
         t = p.same_population
         assert t["statistic"] == pytest.approx(q.same_population["statistic"], abs=1e-9)
         assert t["p_value_chi2"] == pytest.approx(q.same_population["p_value"], abs=1e-12)
-        used = int(t["calibration"].split(",")[1].split()[0])
+        used = int(t["reference"].split(",")[1].split()[0])
         assert round(t["p_value"] * (used + 1)) == pytest.approx(t["p_value"] * (used + 1), abs=1e-9)
     assert c.population("grinding").same_population["p_value"] == pytest.approx(1 / 40)
 
