@@ -562,9 +562,9 @@ def build_parser() -> argparse.ArgumentParser:
                    help="failure probability at which stresses are also compared (default the study's [component] "
                         "target_probability, else 0.01)")
     p.add_argument("--calibrate", type=int, default=None, metavar="N",
-                   help="parametric-bootstrap replicates per test (default: 999 when every origin is identified "
-                        "and the lots share one geometry, else the χ² reference; 0: χ² always, which is a "
-                        "little liberal at 30 specimens per lot, see README)")
+                   help="parametric-bootstrap replicates per test (default: 999 when every origin is identified, "
+                        "299 otherwise; lots on several geometries use χ²; 0: χ² always, which is a little "
+                        "liberal at 30 specimens per lot, see README)")
     p.add_argument("--seed", type=int, help="seed of the sampler and the calibration (default: the study file's, else 0)")
     p.add_argument("--plot", help="save the probability plots of the lots, population by population, to this PNG/SVG")
     p.add_argument("--force", action="store_true", help="replace an existing --plot file")

@@ -25,8 +25,10 @@ from . import likelihood as lik
 from .censored import censored_weibull_mle, common_modulus_censored_mle
 from .simulate import Design, simulate
 
-DEFAULT_REPLICATES = 999
+DEFAULT_REPLICATES = 999            # labelled lots: closed forms, tens of milliseconds per test
+DEFAULT_REPLICATES_GENERAL = 299    # unidentified or ambiguous origins: batched Newton refits
 TESTS = ("same_population", "same_modulus")
+ASCENT_STEPS = 20          # refits still climbing after these creep towards an infinite modulus; their LR is already large
 
 
 def applies(model) -> bool:
@@ -103,14 +105,116 @@ def _bootstrap_p(observed: float, df: int, replicas: np.ndarray, replicates: int
     return out
 
 
+class _Replicas:
+    """R replicate campaigns of every lot (centred), with the lot model's log-likelihood,
+    gradient and Hessian for rows of them: the sum over lots of each lot's concurrent
+    likelihood in its own copies (lots.LotModel.block_derivatives, batched)."""
+
+    def __init__(self, model, batches):
+        self.model = model
+        self.per_lot = [lik.Data(b.y - model.centre, b.failed, b.candidates) for b in batches]
+
+    def derivatives(self, rows: np.ndarray, theta: np.ndarray):
+        P = self.model.n_params
+        ll, grad, hess = np.zeros(rows.size), np.zeros((rows.size, P)), np.zeros((rows.size, P, P))
+        for lot, data in enumerate(self.per_lot):
+            cols = self.model.columns(lot)
+            sub = lik.Data(data.y[rows], data.failed[rows], data.candidates[rows])
+            value, g, h = lik.concurrent_derivatives_batch(sub, theta[:, cols])
+            ll += value
+            grad[:, cols] += g
+            hess[:, cols[:, None], cols] += h
+        return ll, grad, hess
+
+
+def _ascend(replicas: _Replicas, start: np.ndarray, tie: np.ndarray | None, steps: int = ASCENT_STEPS,
+            tol: float = 1e-7) -> np.ndarray:
+    """Batched damped Newton ascent of every replicate from ``start`` (P,), free (tie None) or
+    in the tied coordinates θ = J φ; returns the log-likelihoods reached (R,)."""
+    model = replicas.model
+    lower, upper = model.bounds()
+    J = np.eye(model.n_params) if tie is None else tie
+    R = replicas.per_lot[0].y.shape[0]
+    phi = np.tile(np.linalg.lstsq(J, start, rcond=None)[0], (R, 1))
+    rows = np.arange(R)
+    theta = np.clip(phi @ J.T, lower, upper)
+    ll, g, H = replicas.derivatives(rows, theta)
+    done = ~np.isfinite(ll)
+    for _ in range(steps):
+        gf = g @ J
+        # a coordinate at its bound (a modulus at the search limit) whose score points outward
+        # stays there: no step and no score for it
+        at_lower = (theta <= lower + 1e-12) @ (J > 0) > 0
+        at_upper = (theta >= upper - 1e-12) @ (J > 0) > 0
+        blocked = (at_lower & (gf < 0)) | (at_upper & (gf > 0))
+        gf = np.where(blocked, 0.0, gf)
+        active = ~done & (np.max(np.abs(gf), axis=1) > tol)
+        if not active.any():
+            break
+        a = np.flatnonzero(active)
+        curvature = -(J.T @ H[a] @ J)
+        keep = ~blocked[a]
+        curvature = curvature * (keep[:, :, None] & keep[:, None, :]) + np.eye(J.shape[1]) * ~keep[:, :, None]
+        w, V = np.linalg.eigh(curvature)
+        w = np.maximum(np.abs(w), 1e-8 + 1e-6 * np.abs(w).max(axis=1, keepdims=True))
+        # V diag(1/w) Vᵀ g: the Newton step with every curvature made negative and bounded away from 0
+        step = (V @ ((V.transpose(0, 2, 1) @ gf[a][..., None]) / w[..., None]))[..., 0]
+        step *= np.minimum(1.0, 2.0 / np.maximum(np.max(np.abs(step), axis=1, keepdims=True), 1e-300))
+        floor = ll[a] - 1e-10 * np.maximum(1.0, np.abs(ll[a]))
+        scale = np.ones(a.size)
+        accepted = np.zeros(a.size, bool)
+        new = (ll[a].copy(), g[a].copy(), H[a].copy(), phi[a].copy())
+        for _ in range(30):
+            trying = np.flatnonzero(~accepted)
+            if trying.size == 0:
+                break
+            trial_phi = phi[a[trying]] + scale[trying, None] * step[trying]
+            trial = np.clip(trial_phi @ J.T, lower, upper)
+            l_t, g_t, H_t = replicas.derivatives(a[trying], trial)
+            good = np.isfinite(l_t) & (l_t >= floor[trying])
+            idx = trying[good]
+            new[0][idx], new[1][idx], new[2][idx], new[3][idx] = l_t[good], g_t[good], H_t[good], trial_phi[good]
+            accepted[idx] = True
+            scale[trying[~good]] /= 2
+        previous = ll[a]
+        ll[a], g[a], H[a], phi[a] = new
+        theta[a] = np.clip(phi[a] @ J.T, lower, upper)
+        # no ascent left that matters for a likelihood ratio (a maximum, a modulus at its bound,
+        # or a likelihood still creeping towards an infinite modulus)
+        done[a[~accepted | (ll[a] - previous <= 1e-9)]] = True
+    return ll
+
+
+def general_statistics(model, batches, null: np.ndarray, tie: np.ndarray, free_starts=()) -> tuple[np.ndarray, np.ndarray]:
+    """Likelihood-ratio statistics (R,) of replicate campaigns on the general path: the tied
+    batched ascent started at the null fit they were drawn from, the free one the best of
+    that start and ``free_starts`` (with unidentified origins the free likelihood can have
+    several maxima). Rows where a population has no possible failure in some lot are NaN
+    (usable False)."""
+    usable = np.ones(batches[0].y.shape[0], bool)
+    for b in batches:
+        usable &= np.all((b.candidates & b.failed[..., None]).any(axis=1), axis=1)
+    replicas = _Replicas(model, batches)
+    with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
+        tied = _ascend(replicas, null, tie)
+        free = np.maximum.reduce([_ascend(replicas, start, None) for start in (null, *free_starts)] + [tied])
+        statistic = np.maximum(0.0, 2.0 * (free - tied))
+    usable &= np.isfinite(statistic)
+    return np.where(usable, statistic, np.nan), usable
+
+
 def bootstrap_p_values(model, tests: list[dict], replicates: int = DEFAULT_REPLICATES, seed=0,
-                       keys=TESTS, bar=None) -> list[dict]:
+                       keys=TESTS, bar=None, free_theta: np.ndarray | None = None) -> list[dict]:
     """Replace each test's χ² p-value by its parametric-bootstrap p-value (labelled lots).
 
     Campaigns are drawn from the test's own null fit (``test["theta"]``) with each lot's
     observed design, and p = (1 + #{LR* ≥ LR}) / (1 + usable replicates) (see
-    :func:`_bootstrap_p`). Adds ``p_value_chi2``, ``bartlett_factor`` and ``reference`` to
+    :func:`_bootstrap_p`; ``free_theta``, the observed free fit, is a second start of the
+    replicates' free refits on the general path). Adds ``p_value_chi2``, ``bartlett_factor`` and ``reference`` to
     each test named in ``keys``."""
+    if model.sized:
+        raise ValueError("the bootstrap of lots on several geometries is not available")
+    labelled = applies(model)
     rng = np.random.default_rng(seed)
     designs = lot_designs(model)
     step = 0
@@ -124,8 +228,13 @@ def bootstrap_p_values(model, tests: list[dict], replicates: int = DEFAULT_REPLI
                                 np.exp(null[model.columns(lot)][model.k:] + model.centre), None, design,
                                 replicates, rng)
                        for lot, design in enumerate(designs)]
-            groups = [(b.y - model.centre, (b.failed & b.candidates[..., j]).astype(float)) for b in batches]
-            statistic, usable = separable_statistic(groups, key)
+            if labelled:
+                groups = [(b.y - model.centre, (b.failed & b.candidates[..., j]).astype(float)) for b in batches]
+                statistic, usable = separable_statistic(groups, key)
+            else:
+                tie = model.tie_same_population(j) if key == "same_population" else model.tie_same_modulus(j)
+                statistic, usable = general_statistics(model, batches, null, tie,
+                                                       () if free_theta is None else (free_theta,))
             test.update(_bootstrap_p(test["statistic"], test["df"], statistic[usable], replicates))
             step += 1
             if bar is not None:

@@ -429,84 +429,39 @@ def likelihood_ratio_tests(model: LotModel, free=None) -> list[dict]:
     return out
 
 
-def calibrate_tests(model: LotModel, free, tests: list[dict], replicates: int, seed=0, progress: bool = False,
-                    keys=("same_population", "same_modulus")):
-    """Parametric-bootstrap p-values of every likelihood-ratio test on the general joint
-    path: campaigns drawn from the test's own null fit with each lot's observed design
-    (survivors at their stresses, origins unidentified as often), refitted free and tied;
-    p = (1 + #{LR* ≥ LR}) / (1 + valid). Labelled lots take the batched closed forms of
-    lot_calibration.py instead (the same statistic, tested equal). Adds ``p_value_chi2`` and
-    ``reference`` to each test named in ``keys`` and replaces its ``p_value``."""
-    from . import progress as _progress
-    from .lot_calibration import lot_designs
-    from .simulate import simulate
-
-    if model.sized:
-        raise FlawmixError("calibrated tests for lots on several geometries are not available; use --calibrate 0")
-    rng = np.random.default_rng(seed)
-    designs = lot_designs(model)
-    lot = np.concatenate([np.full(d.n, l) for l, d in enumerate(designs)])
-    with _progress.task("calibrating the tests (parametric bootstrap)", model.k * 2 * replicates, show=progress) as bar:
-        for j in range(model.k):
-            for n_test, (key, tie) in enumerate((("same_population", model.tie_same_population(j)),
-                                                 ("same_modulus", model.tie_same_modulus(j)))):
-                if key not in keys:
-                    continue
-                test = tests[j][key]
-                null = test["theta"]
-                batches = [simulate(lik.Model("concurrent", model.k), np.exp(null[model.columns(l)][:model.k]),
-                                    np.exp(null[model.columns(l)][model.k:] + model.centre), None, d, replicates, rng)
-                           for l, d in enumerate(designs)]
-                stats = []
-                for r in range(replicates):
-                    y, failed, cand = (np.concatenate([getattr(b, a)[r] for b in batches]) for a in
-                                       ("y", "failed", "candidates"))
-                    if all(cand[(lot == l) & failed].any(axis=0).all() for l in range(model.n_lots)):
-                        replica = model_from_arrays(y, failed, cand, lot, model.n_lots)
-                        top = maximise(replica)
-                        tied = maximise(replica, tie, _tied_starts(replica, top.theta, j))
-                        stats.append(max(0.0, 2.0 * (top.loglik - tied.loglik)))
-                    bar.step((2 * j + n_test) * replicates + r + 1)
-                stats = np.asarray(stats)
-                test["p_value_chi2"] = test["p_value"]
-                test["p_value"] = float((1 + np.sum(stats >= test["statistic"] - 1e-9)) / (1 + stats.size))
-                test["reference"] = (f"parametric bootstrap of the null fit, {stats.size} of {replicates} "
-                                     f"replicates usable")
-    return tests
-
-
 def reference_p_values(model: LotModel, free, tests: list[dict], calibrate: int | None, seed=0,
                        progress: bool = False, keys=("same_population", "same_modulus")) -> list[dict]:
     """Set each test's p-value from its reference distribution and name it in ``reference``.
 
-    calibrate None (the default): the parametric bootstrap (999 replicates) where the lots are
-    labelled and on one geometry (lot_calibration.py, closed forms, tens of milliseconds),
-    else the χ² reference, which is a little liberal at N = 30 per lot (7.05 ± 0.57 % at 5 %,
-    studies/lots_labelled_bootstrap.py). 0: χ² always. A count: that many bootstrap
-    replicates, on the general path where the closed forms do not hold."""
+    calibrate None (the default): a parametric bootstrap of each test's null fit for lots on
+    one geometry (lot_calibration.py: 999 replicates in closed form when every origin is
+    identified, 299 batched Newton refits otherwise); the χ² reference, which is a little
+    liberal at 30 per lot (7.05 ± 0.57 % at 5 %, studies/lots_labelled_bootstrap.py), for
+    lots on several geometries. 0: χ² always. A count: that many bootstrap replicates."""
     from . import lot_calibration
     from . import progress as _progress
 
     for rows in tests:
-        for key, test in rows.items():
+        for test in rows.values():
             test["reference"] = "χ²"
     if calibrate == 0:
         return tests
     if calibrate is not None and calibrate < 19:
         raise FlawmixError(f"calibrate needs at least 19 replicates (got {calibrate}); 199 or more is usual")
-    if lot_calibration.applies(model):
-        with _progress.task("bootstrap p-values of the tests", model.k * len(keys), show=progress) as bar:
-            return lot_calibration.bootstrap_p_values(model, tests, calibrate or lot_calibration.DEFAULT_REPLICATES,
-                                                      seed, keys, bar)
-    if calibrate is None:
-        note = "; not calibrated (lots on several geometries)" if model.sized else \
-            "; not calibrated (origins not all identified; --calibrate N, calibrate=N in Python, runs the " \
-            "bootstrap on the general path)"
+    if model.sized:
+        if calibrate is not None:
+            raise FlawmixError("calibrated tests for lots on several geometries are not available; use --calibrate 0")
         for rows in tests:
             for test in rows.values():
-                test["reference"] += note
+                test["reference"] += "; not calibrated (lots on several geometries)"
         return tests
-    return calibrate_tests(model, free, tests, calibrate, seed, progress, keys)
+    labelled = lot_calibration.applies(model)
+    replicates = calibrate or (lot_calibration.DEFAULT_REPLICATES if labelled
+                               else lot_calibration.DEFAULT_REPLICATES_GENERAL)
+    what = "bootstrap p-values of the tests" + ("" if labelled else f" ({replicates} refits per test)")
+    with _progress.task(what, model.k * len(keys), show=progress) as bar:
+        return lot_calibration.bootstrap_p_values(model, tests, replicates, seed, keys, bar,
+                                                  free_theta=None if free is None else free.theta)
 
 
 # ---- intervals on changes: profile likelihood of a reparametrised model ---------------------

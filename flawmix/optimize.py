@@ -63,21 +63,34 @@ def newton_maximise(
         # the start overflows (far out on a profile): no maximum from here, said by -inf
         return Optimum(theta, -np.inf, np.full(J.shape[1], np.nan), np.full((J.shape[1],) * 2, np.nan), 0, False)
     gf, Hf = J.T @ g, J.T @ H @ J
+    lo_t = np.full(P, -np.inf) if lower is None else np.broadcast_to(lower, (P,))
+    hi_t = np.full(P, np.inf) if upper is None else np.broadcast_to(upper, (P,))
+    rising, falling = (J > 0).astype(float), (J < 0).astype(float)
+
+    def free_score(theta, gf):
+        """The score with every coordinate that a bound holds (its score points outward) set to
+        0: those stay where they are (the KKT conditions of the bounded maximum)."""
+        at_lo, at_hi = (theta <= lo_t + 1e-12).astype(float), (theta >= hi_t - 1e-12).astype(float)
+        held = ((gf > 0) & ((at_hi @ rising + at_lo @ falling) > 0)) | \
+            ((gf < 0) & ((at_lo @ rising + at_hi @ falling) > 0))
+        return np.where(held, 0.0, gf), held
+
     damping = 0.0
     it = 0
     converged = False
     for it in range(1, max_iter + 1):
-        if np.max(np.abs(gf)) <= score_tol:
+        score, held = free_score(theta, gf)
+        if np.max(np.abs(score)) <= score_tol:
             converged = True
             break
-        A = -Hf
+        A = np.where(held[:, None] | held[None, :], 0.0, -Hf) + np.diag(held.astype(float))
         scale = np.sqrt(np.maximum(np.abs(np.diag(A)), 1e-300))
         improved = False
         for _ in range(40):
             try:
                 M = A + damping * np.diag(scale**2)
                 L = np.linalg.cholesky(M)
-                step = np.linalg.solve(L.T, np.linalg.solve(L, gf))
+                step = np.linalg.solve(L.T, np.linalg.solve(L, score))
             except np.linalg.LinAlgError:
                 damping = max(1e-6, damping * 10)
                 continue
@@ -91,7 +104,7 @@ def newton_maximise(
             ll_new, g_new, H_new = derivatives(t_new)
             finite = np.isfinite(ll_new) and np.all(np.isfinite(g_new)) and np.all(np.isfinite(H_new))
             if finite and ll_new >= ll - 1e-12 * max(1.0, abs(ll)):
-                improved = ll_new > ll or np.max(np.abs(J.T @ g_new)) < np.max(np.abs(gf))
+                improved = ll_new > ll or np.max(np.abs(free_score(t_new, J.T @ g_new)[0])) < np.max(np.abs(score))
                 phi, theta, ll, g, H = phi + step, t_new, ll_new, g_new, H_new
                 gf, Hf = J.T @ g, J.T @ H @ J
                 damping = damping / 10 if damping > 1e-8 else 0.0
@@ -99,7 +112,7 @@ def newton_maximise(
             damping = max(1e-6, damping * 10)
         if not improved:
             # Nothing improves at machine precision: a maximum (or a bound) is reached.
-            converged = np.max(np.abs(gf)) <= max(score_tol, 1e-7 * max(1.0, abs(ll)))
+            converged = np.max(np.abs(free_score(theta, gf)[0])) <= max(score_tol, 1e-7 * max(1.0, abs(ll)))
             break
     return Optimum(theta, float(ll), gf, Hf, it, bool(converged))
 
