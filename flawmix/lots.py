@@ -643,11 +643,11 @@ def compare_lots(lots, populations=None, *, study=None, method: str = "mle", con
         bar.step(2, "likelihood-ratio tests")
         estimates = _per_lot_estimates(model, free, lots, confidence, problems)
         bar.step(3, "per-lot intervals")
-        changes = []
+        changes = []   # [population][lot 1..L−1]: (σθ ratio, stress ratio) against the baseline, with intervals
         for j in range(model.k):
-            changes.append((change_interval(model, free, j, 0, lots.n_lots - 1, confidence, problems=problems),
-                            change_interval(model, free, j, 0, lots.n_lots - 1, confidence, probability,
-                                            problems=problems)))
+            changes.append([(change_interval(model, free, j, 0, lot, confidence, problems=problems),
+                             change_interval(model, free, j, 0, lot, confidence, probability, problems=problems))
+                            for lot in range(1, lots.n_lots)])
             bar.step(4 + j, f"changes of '{lots.specimens.population_names[j]}'")
     posterior = _posterior_changes(lots, confidence, study.priors if study else None, seed) \
         if method == "bayes" else None
@@ -714,6 +714,7 @@ class LotPopulation:
     strength_change: dict
     stress_change: dict
     verdict: str
+    changes_by_lot: tuple = ()     # every lot against the baseline (σθ and stress ratios, intervals)
 
     @property
     def changed(self) -> bool:
@@ -732,9 +733,12 @@ class LotPopulation:
                   for key, v in self.strength_change.items()}
         stress = {key: (_num(v) if isinstance(v, float) else [_num(x) for x in v] if isinstance(v, tuple) else v)
                   for key, v in self.stress_change.items()}
+        against = [{key: (_num(v) if isinstance(v, float) else [_num(x) for x in v] if isinstance(v, tuple) else v)
+                    for key, v in row.items()} for row in self.changes_by_lot]
         return {"name": self.name, "kind": self.kind, "by_lot": by_lot,
                 "same_population": test(self.same_population), "same_modulus": test(self.same_modulus),
-                "strength_change": change, "stress_change": stress, "verdict": self.verdict}
+                "strength_change": change, "stress_change": stress, "changes_by_lot": against,
+                "verdict": self.verdict}
 
 
 @dataclass(frozen=True)
@@ -852,7 +856,7 @@ def _percent_change(ratio: float) -> str:
 
 
 def population_verdict(name: str, change: dict, same: dict, modulus: dict, lots: Sequence[str],
-                       moduli: Sequence[float] = ()) -> str:
+                       moduli: Sequence[float] = (), by_lot: Sequence[dict] = ()) -> str:
     """One clause per population, in the words of the evidence scale (flawmix/evidence.py)."""
     p = same["p_value"]
     ratio, (lo, hi) = change["ratio"], change["ratio_interval"]
@@ -864,8 +868,10 @@ def population_verdict(name: str, change: dict, same: dict, modulus: dict, lots:
         text = f"{name}: no detectable change (p = {p:.2g}{hint}; σθ {_percent_change(ratio)} {span})"
     else:
         direction = "up" if ratio >= 1 else "down"
+        each = "" if len(by_lot) < 2 else f"; against '{lots[0]}': " + ", ".join(
+            f"'{row['to']}' {_percent_change(row['ratio'])}" for row in by_lot)
         text = (f"{name}: σθ {direction} {abs(100 * (ratio - 1)):.0f} % {span} from '{lots[0]}' to '{lots[-1]}', "
-                f"{words} of a change (p = {p:.2g})")
+                f"{words} of a change (p = {p:.2g}{each})")
         if rejects(modulus["p_value"]):
             shift = f"m {moduli[0]:.3g} → {moduli[-1]:.3g}, " if len(moduli) else ""
             text += f", and its modulus changed ({shift}{evidence_words(modulus['p_value'])}, p = {modulus['p_value']:.2g})"
@@ -899,9 +905,11 @@ def _assemble(lots, model, free, tests, estimates, changes, posterior, confidenc
     lot_scales = np.array([[estimates[j][l]["characteristic_strength"] for j in range(model.k)] for l in range(L)])
     pops = []
     for j, pop in enumerate(sp.populations):
-        (ratio, lo, hi), (s_ratio, s_lo, s_hi) = changes[j]
+        (ratio, lo, hi), (s_ratio, s_lo, s_hi) = changes[j][-1]
         change = {"from": lots.names[0], "to": lots.names[-1], "ratio": ratio, "ratio_interval": (lo, hi),
                   "interval_method": "profile likelihood"}
+        by_lot = tuple({"from": lots.names[0], "to": lots.names[l + 1], "ratio": c[0], "ratio_interval": c[1:],
+                        "stress_ratio": d[0], "stress_ratio_interval": d[1:]} for l, (c, d) in enumerate(changes[j]))
         stress = {"from": lots.names[0], "to": lots.names[-1], "probability": probability, "ratio": s_ratio,
                   "ratio_interval": (s_lo, s_hi), "interval_method": "profile likelihood"}
         if posterior is not None:
@@ -909,7 +917,7 @@ def _assemble(lots, model, free, tests, estimates, changes, posterior, confidenc
         same, modulus = tests[j]["same_population"], tests[j]["same_modulus"]
         pops.append(LotPopulation(pop.name, pop.kind, tuple(estimates[j]), same, modulus, change, stress,
                                   population_verdict(pop.name, change, same, modulus, lots.names,
-                                                     [row["modulus"] for row in estimates[j]])))
+                                                     [row["modulus"] for row in estimates[j]], by_lot), by_lot))
     where = f"overall ({model.extras['reference_geometry']})" if model.sized else "overall (test specimen)"
     held = [j for j in range(model.k) if not pops[j].changed]
     moduli, scales = selected_parameters(model, free, held)
@@ -1036,6 +1044,11 @@ def format_comparison(c: LotComparison) -> str:
             t = getattr(p, key)
             lines.append(f"  test '{what}': LR {t['statistic']:.2f}, {t['df']} df, p = {fmt.p_value(t['p_value'])} "
                          f"({evidence_words(t['p_value'])} against it)")
+        for row in p.changes_by_lot[:-1]:       # more than two lots: the others against the baseline too
+            lines.append(f"  σθ ratio '{row['to']}'/'{row['from']}': {row['ratio']:.3f} "
+                         f"{fmt.interval(*row['ratio_interval'], kind=lambda x: fmt.significant(x, 3))}; stress at "
+                         f"{100 * c.probability:g} % (alone): {row['stress_ratio']:.3f} "
+                         f"{fmt.interval(*row['stress_ratio_interval'], kind=lambda x: fmt.significant(x, 3))}")
         ch, st = p.strength_change, p.stress_change
         lines.append(f"  σθ ratio '{ch['to']}'/'{ch['from']}': {ch['ratio']:.3f} "
                      f"{fmt.interval(*ch['ratio_interval'], kind=lambda x: fmt.significant(x, 3))}; stress at "

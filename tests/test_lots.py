@@ -418,3 +418,23 @@ def test_component_change_scales_each_population_by_its_own_size_and_modulus():
         stress = brentq(lambda x: np.sum((x / scale) ** m) + np.log1p(-0.01), 1.0, 5000.0, xtol=1e-10)
         assert row["stress_at_probability"] == pytest.approx(stress, rel=1e-5)
     assert c.component["name"] == "nozzle ring" and "Component 'nozzle ring'" in c.verdict
+
+
+def test_three_lots_report_every_lot_against_the_baseline():
+    """Each lot's change against the baseline; in the free model a lot's copies are
+    independent of the other lots, so 'trial'/'old' equals the two-lot comparison of those
+    lots alone, and the last entry is the first→last change of the verdict."""
+    rng = np.random.default_rng(5)
+    frame = pd.concat([campaign(rng, 30, {"pore": (8.0, 500.0), "grinding": (15.0, 470 * f)}, 0.0, None, name)
+                       for name, f in (("old", 1.0), ("trial", 1.06), ("new", 1.15))], ignore_index=True)
+    three = L.compare_lots(frame, POPS, order=["old", "trial", "new"], calibrate=0)
+    two = L.compare_lots(frame[frame["lot"] != "new"], POPS, order=["old", "trial"], calibrate=0)
+    for p, q in zip(three.populations, two.populations):
+        assert [row["to"] for row in p.changes_by_lot] == ["trial", "new"]
+        first, last = p.changes_by_lot
+        assert first["ratio"] == pytest.approx(q.strength_change["ratio"], rel=1e-7)
+        np.testing.assert_allclose(first["ratio_interval"], q.strength_change["ratio_interval"], rtol=1e-6)
+        np.testing.assert_allclose(first["stress_ratio_interval"], q.stress_change["ratio_interval"], rtol=1e-6)
+        assert last["ratio"] == p.strength_change["ratio"]
+    assert "against 'old': 'trial'" in three.population("grinding").verdict
+    assert "σθ ratio 'trial'/'old'" in L.format_comparison(three)
