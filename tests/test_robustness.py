@@ -345,3 +345,22 @@ def test_overflowing_hazard_is_certain_failure_without_a_numpy_warning():
         sf = model_sf("concurrent", [1e3, 1e9], [50.0, 10.0], [1.0, 2.0])
         sf_ex = model_sf("exclusive", [1e9], [60.0, 10.0], [1.0, 2.0], fractions=[0.5, 0.5])
     assert np.all(sf == 0.0) and sf_ex[0] == 0.0
+
+
+def test_newton_holds_a_bound_whose_score_points_outward_and_moves_the_rest():
+    """A concave quadratic whose unconstrained maximum lies beyond an upper bound on θ0,
+    coupled to θ1: the bounded maximum (θ0 at the bound, θ1 re-optimised) is scipy's L-BFGS-B
+    answer on the same function. A Newton step that ignored the bound would stop short."""
+    from flawmix.optimize import newton_maximise
+
+    A = np.array([[2.0, 1.6, 0.3], [1.6, 2.0, 0.5], [0.3, 0.5, 1.0]])
+    centre = np.array([3.0, -2.0, 1.0])
+    f = lambda t: -0.5 * (t - centre) @ A @ (t - centre)
+    derivatives = lambda t: (float(f(t)), -A @ (t - centre), -A)
+    upper = np.array([1.0, np.inf, np.inf])
+    opt = newton_maximise(derivatives, np.zeros(3), upper=upper)
+    ref = optimize.minimize(lambda t: -f(t), np.zeros(3), jac=lambda t: A @ (t - centre), method="L-BFGS-B",
+                            bounds=[(None, 1.0), (None, None), (None, None)], options={"ftol": 1e-15, "gtol": 1e-12})
+    assert opt.converged
+    np.testing.assert_allclose(opt.theta, ref.x, atol=1e-7)
+    assert opt.loglik == pytest.approx(-ref.fun, abs=1e-10)
