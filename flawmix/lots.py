@@ -1026,6 +1026,13 @@ def _component_change(lots, study, model, moduli, scales, probability):
     return {"name": name, **out}
 
 
+def reference_text(c: "LotComparison") -> str:
+    """The tests' reference distributions in one phrase (replicate counts, not usable counts)."""
+    return "; ".join(dict.fromkeys(re.sub(r"\d+ of (\d+) replicates usable(; beyond.*)?", r"\1 replicates",
+                                          getattr(p, key)["reference"])
+                                   for p in c.populations for key in ("same_population", "same_modulus")))
+
+
 def format_comparison(c: LotComparison) -> str:
     """The comparison as text: per population a table by lot, the tests and the change."""
     from . import formatting as fmt
@@ -1057,10 +1064,7 @@ def format_comparison(c: LotComparison) -> str:
                      + (f"; P(σθ rose) {_probability_words(ch['probability_stronger'])}"
                         if "probability_stronger" in ch else ""))
         lines.append("")
-    references = dict.fromkeys(re.sub(r"\d+ of (\d+) replicates usable(; beyond.*)?", r"\1 replicates",
-                                      getattr(p, key)["reference"])
-                               for p in c.populations for key in ("same_population", "same_modulus"))
-    lines.append(textwrap.fill("p-values: " + "; ".join(references), width=92, subsequent_indent="  "))
+    lines.append(textwrap.fill("p-values: " + reference_text(c), width=92, subsequent_indent="  "))
     lines.append(textwrap.fill("Verdict: " + c.verdict, width=92, subsequent_indent="  ", break_on_hyphens=False))
     return "\n".join(lines)
 

@@ -460,6 +460,7 @@ def section_comparison(a: Analysis, figs, tables) -> list[str]:
 
 def section_lots(a: Analysis, figs, tables) -> list[str]:
     from . import plots
+    from .lots import reference_text
 
     c = a.extra.get("lots")
     if c is None:
@@ -474,6 +475,7 @@ def section_lots(a: Analysis, figs, tables) -> list[str]:
     c.summary().to_csv(tables / "lots.csv")
     out.append(_table(c.summary(), kinds={"failures": "count", "p same population": "p_value",
                                           "p same modulus": "p_value"}))
+    out.append(f'<p class="small">p-values: {_esc(reference_text(c))}.</p>')
     out.append(f'<p class="verdict">{_esc(c.verdict)}</p>')
     out.append(figs.add("lots_probability_plots", plots.lot_probability_plot(c),
                         "Each population's failures lot by lot, at adjusted ranks within the lot, with each lot's own "

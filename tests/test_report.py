@@ -185,6 +185,8 @@ def test_report_shows_the_lot_comparison_when_the_table_has_lots(tmp_path):
     import html
 
     assert html.escape(results["lots"]["verdict"].split(";")[0], quote=True) in page
+    assert "p-values: parametric bootstrap of the null fit, 299 replicates." in page
+    assert results["lots"]["populations"][0]["same_population"]["reference"].startswith("parametric bootstrap")
 
 
 def test_demo_report_has_no_lot_section(demo_report):
