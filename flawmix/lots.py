@@ -590,15 +590,37 @@ def overall_change(moduli: np.ndarray, scales: np.ndarray, names, populations, p
             "ratio": rows[-1]["stress_at_probability"] / rows[0]["stress_at_probability"]}
 
 
-def _posterior_changes(lots: Lots, confidence: float, priors, seed) -> tuple[list, list]:
+def _posterior_changes(lots: Lots, confidence: float, priors, seed, model: LotModel | None = None) -> tuple[list, list]:
     """Bayes: each lot's posterior (the free lot model factorises over lots, so the joint
-    posterior is the product of the lots' own posteriors). Returns per-lot fits and draws."""
+    posterior is the product of the lots' own posteriors). Returns per-lot fits and draws.
+    Lots on different bars (one bar per lot, ``model`` sized) have each draw's σθ carried to
+    the reference geometry, σθ_ref = σθ_own · exp((ln S_own − ln S_ref)/m) with S each
+    population's effective size at the draw's modulus (DOMAIN.md section 4)."""
     from .bayes import fit_bayes
+    from .geometry import population_log_sizes
 
     fits = [fit_bayes(lots.subset(l), confidence, priors=priors, seed=None if seed is None else seed + l)
             for l in range(lots.n_lots)]
     size = min(f.draws.moduli.shape[0] for f in fits)
-    return fits, [(f.draws.moduli[:size], f.draws.scales[:size]) for f in fits]
+    draws = [(f.draws.moduli[:size], f.draws.scales[:size]) for f in fits]
+    if model is not None and model.sized:
+        geoms = dict(zip(model.extras["geometry_names"], model.extras["geometries"]))
+        ref = geoms[model.extras["reference_geometry"]]
+        kinds = [p.kind for p in lots.specimens.populations]
+        for l, (m, sc) in enumerate(draws):
+            own = geoms[_single_geometry(lots, l)]
+            shift = (population_log_sizes(own, kinds, m) - population_log_sizes(ref, kinds, m)) / m
+            draws[l] = (m, sc * np.exp(shift))
+    return fits, draws
+
+
+def _single_geometry(lots: Lots, lot: int) -> str:
+    """The one geometry of a lot's specimens (Bayes on several bars needs one bar per lot)."""
+    own = sorted(set(lots.specimens.geometry[lots.lot == lot]))
+    if len(own) != 1:
+        raise FlawmixError(f"--method bayes: lot '{lots.names[lot]}' was tested on several geometries "
+                           f"({', '.join(own)}); Bayes needs one geometry per lot, use --method mle")
+    return own[0]
 
 
 def compare_lots(lots, populations=None, *, study=None, method: str = "mle", confidence: float | None = None,
@@ -631,9 +653,10 @@ def compare_lots(lots, populations=None, *, study=None, method: str = "mle", con
         raise FlawmixError(f"probability {probability} must lie strictly between 0 and 1 (for example 0.01)")
     doubts = _check_lots(lots)
     geometries = _lot_geometries(lots, study)
-    if method == "bayes" and geometries:
-        raise FlawmixError("--method bayes for lots tested on different geometries is not available; use mle")
     model = lot_model(lots, geometries)
+    if method == "bayes" and geometries:
+        for lot in range(lots.n_lots):
+            _single_geometry(lots, lot)
     problems: list[str] = list(doubts)
     with _progress.task("comparing lots", 3 + model.k, show=progress) as bar:
         free = maximise(model)
@@ -649,7 +672,7 @@ def compare_lots(lots, populations=None, *, study=None, method: str = "mle", con
                              change_interval(model, free, j, 0, lot, confidence, probability, problems=problems))
                             for lot in range(1, lots.n_lots)])
             bar.step(4 + j, f"changes of '{lots.specimens.population_names[j]}'")
-    posterior = _posterior_changes(lots, confidence, study.priors if study else None, seed) \
+    posterior = _posterior_changes(lots, confidence, study.priors if study else None, seed, model) \
         if method == "bayes" else None
     return _assemble(lots, model, free, tests, estimates, changes, posterior, confidence, probability, method,
                      study, problems)

@@ -440,3 +440,50 @@ def test_three_lots_report_every_lot_against_the_baseline():
         assert last["ratio"] == p.strength_change["ratio"]
     assert "against 'old': 'trial'" in three.population("grinding").verdict
     assert "σθ ratio 'trial'/'old'" in L.format_comparison(three)
+
+
+def _bars():
+    from flawmix.geometry import Geometry
+
+    return {"large": Geometry.from_spec("large", {"type": "flexure-4pt", "width": 4, "depth": 3, "outer_span": 40,
+                                                  "inner_span": 20}),
+            "small": Geometry.from_spec("small", {"type": "flexure-3pt", "width": 2, "depth": 1.5, "outer_span": 20})}
+
+
+def _lots_on_two_bars(rng, n=40, m=10.0, sigma0=450.0, change=1.0):
+    """One volume population; lot 'large' on a 4-point bar, lot 'small' on a 3-point bar, σθ of
+    each bar from σθ_bar = σ0·V_E^(−1/m) (DOMAIN.md section 4), the second lot's σ0 × change."""
+    frames = []
+    for (name, geom), factor in zip(_bars().items(), (1.0, change)):
+        scale = factor * sigma0 * geom.size("volume", m) ** (-1 / m)
+        frames.append(campaign(rng, n, {"pore": (m, scale)}, lot=name).assign(geometry=name))
+    return pd.concat(frames, ignore_index=True)
+
+
+def test_bayes_lots_on_two_bars_compare_through_the_material_scale():
+    """Same material on two bars: each lot's posterior draws carried to the reference bar by
+    (V_E,own/V_E,ref)^(1/m) give a σθ ratio near 1 whose credible interval agrees with the
+    sized MLE's profile interval (both quantify the same likelihood; flat-ish priors)."""
+    pops = {"pores": {"kind": "volume", "labels": ["pore"]}}
+    lots = L.read_lots(_lots_on_two_bars(np.random.default_rng(41)), pops, lots=["large", "small"])
+    study = type("S", (), {"geometries": True, "geometry_objects": staticmethod(_bars), "priors": None,
+                           "confidence": None, "component": None, "component_load": lambda self: {}})()
+    mle = L.compare_lots(lots, study=study, calibrate=0)
+    bayes = L.compare_lots(lots, study=study, method="bayes", seed=3)
+    a, b = mle.populations[0].strength_change, bayes.populations[0].strength_change
+    assert b["interval_method"] == "credible (equal-tailed)" and 0 < b["probability_stronger"] < 1
+    assert b["ratio"] == pytest.approx(a["ratio"], rel=0.02)
+    np.testing.assert_allclose(b["ratio_interval"], a["ratio_interval"], rtol=0.04)
+    for r, s in zip(mle.populations[0].by_lot, bayes.populations[0].by_lot):
+        assert s["characteristic_strength"] == pytest.approx(r["characteristic_strength"], rel=0.02)
+
+
+def test_bayes_lots_need_one_bar_per_lot():
+    pops = {"pores": {"kind": "volume", "labels": ["pore"]}}
+    frame = _lots_on_two_bars(np.random.default_rng(42))
+    frame.loc[frame.index[:3], "geometry"] = "small"          # three bars of lot 'large' on the other bar
+    lots = L.read_lots(frame, pops, lots=["large", "small"])
+    study = type("S", (), {"geometries": True, "geometry_objects": staticmethod(_bars), "priors": None,
+                           "confidence": None, "component": None, "component_load": lambda self: {}})()
+    with pytest.raises(L.FlawmixError, match="lot 'large' was tested on several geometries"):
+        L.compare_lots(lots, study=study, method="bayes")
