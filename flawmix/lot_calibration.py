@@ -106,19 +106,35 @@ def _bootstrap_p(observed: float, df: int, replicas: np.ndarray, replicates: int
 
 
 class _Replicas:
-    """R replicate campaigns of every lot (centred), with the lot model's log-likelihood,
-    gradient and Hessian for rows of them: the sum over lots of each lot's concurrent
-    likelihood in its own copies (lots.LotModel.block_derivatives, batched)."""
+    """R replicate campaigns of some lots (centred), with their log-likelihood, gradient and
+    Hessian for rows of them: the sum over those lots of each lot's concurrent likelihood in
+    its own copies (lots.LotModel.block_derivatives, batched). ``columns`` (per lot) place a
+    lot's 2k parameters in theta; ``lower``/``upper`` bound theta."""
 
-    def __init__(self, model, batches):
-        self.model = model
-        self.per_lot = [lik.Data(b.y - model.centre, b.failed, b.candidates) for b in batches]
+    def __init__(self, per_lot, columns, lower, upper):
+        self.per_lot, self.columns = per_lot, columns
+        self.lower, self.upper = lower, upper
+        self.n_params = lower.size
+
+    @classmethod
+    def joint(cls, model, batches) -> "_Replicas":
+        lower, upper = model.bounds()
+        return cls([lik.Data(b.y - model.centre, b.failed, b.candidates) for b in batches],
+                   [model.columns(lot) for lot in range(model.n_lots)], lower, upper)
+
+    def lot(self, lot: int) -> "_Replicas":
+        """One lot alone (its own 2k parameters): the free lot model separates by lot."""
+        cols = self.columns[lot]
+        return _Replicas([self.per_lot[lot]], [np.arange(cols.size)], self.lower[cols], self.upper[cols])
 
     def derivatives(self, rows: np.ndarray, theta: np.ndarray):
-        P = self.model.n_params
+        P = self.n_params
+        if len(self.per_lot) == 1:
+            data = self.per_lot[0]
+            return lik.concurrent_derivatives_batch(lik.Data(data.y[rows], data.failed[rows], data.candidates[rows]),
+                                                    theta)
         ll, grad, hess = np.zeros(rows.size), np.zeros((rows.size, P)), np.zeros((rows.size, P, P))
-        for lot, data in enumerate(self.per_lot):
-            cols = self.model.columns(lot)
+        for data, cols in zip(self.per_lot, self.columns):
             sub = lik.Data(data.y[rows], data.failed[rows], data.candidates[rows])
             value, g, h = lik.concurrent_derivatives_batch(sub, theta[:, cols])
             ll += value
@@ -131,9 +147,8 @@ def _ascend(replicas: _Replicas, start: np.ndarray, tie: np.ndarray | None, step
             tol: float = 1e-7) -> np.ndarray:
     """Batched damped Newton ascent of every replicate from ``start`` (P,), free (tie None) or
     in the tied coordinates θ = J φ; returns the log-likelihoods reached (R,)."""
-    model = replicas.model
-    lower, upper = model.bounds()
-    J = np.eye(model.n_params) if tie is None else tie
+    lower, upper = replicas.lower, replicas.upper
+    J = np.eye(replicas.n_params) if tie is None else tie
     R = replicas.per_lot[0].y.shape[0]
     phi = np.tile(np.linalg.lstsq(J, start, rcond=None)[0], (R, 1))
     rows = np.arange(R)
@@ -194,11 +209,13 @@ def general_statistics(model, batches, null: np.ndarray, tie: np.ndarray, free_s
     usable = np.ones(batches[0].y.shape[0], bool)
     for b in batches:
         usable &= np.all((b.candidates & b.failed[..., None]).any(axis=1), axis=1)
-    replicas = _Replicas(model, batches)
+    replicas = _Replicas.joint(model, batches)
     with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
         tied = _ascend(replicas, null, tie)
-        free = np.maximum.reduce([_ascend(replicas, start, None) for start in (null, *free_starts)] + [tied])
-        statistic = np.maximum(0.0, 2.0 * (free - tied))
+        # free: lot by lot (the free model separates), the best start of each lot
+        free = sum(np.maximum.reduce([_ascend(replicas.lot(lot), start[cols], None) for start in (null, *free_starts)])
+                   for lot, cols in enumerate(replicas.columns))
+        statistic = np.maximum(0.0, 2.0 * (np.maximum(free, tied) - tied))
     usable &= np.isfinite(statistic)
     return np.where(usable, statistic, np.nan), usable
 
