@@ -1063,11 +1063,13 @@ def format_comparison(c: LotComparison) -> str:
     level = fmt.level(c.confidence)
     lines = [f"Lots compared population by population ({c.method}; baseline '{c.lots[0]}'; {level}s"
              + (f"; σθ of geometry '{c.reference_geometry}'" if c.reference_geometry else "") + ")", ""]
+    width = max([14] + [len(str(name)) + 2 for name in c.lots])    # long lot names keep the columns aligned
     for p in c.populations:
         lines.append(f"{p.name} ({p.kind})")
-        lines.append(f"  {'lot':<14}{'failures':>9}  {'modulus':>8} {level:>18}  {'σθ (' + c.unit + ')':>10} {level:>20}")
+        lines.append(f"  {'lot':<{width}}{'failures':>9}  {'modulus':>8} {level:>18}  {'σθ (' + c.unit + ')':>10} "
+                     f"{level:>20}")
         for r in p.by_lot:
-            lines.append(f"  {str(r['lot']):<14}{r['n_failures']:>9}  {fmt.modulus(r['modulus']):>8} "
+            lines.append(f"  {str(r['lot']):<{width}}{r['n_failures']:>9}  {fmt.modulus(r['modulus']):>8} "
                          f"{fmt.interval(*r['modulus_interval'], kind=fmt.modulus):>18}  "
                          f"{fmt.stress(r['characteristic_strength']):>10} {fmt.interval(*r['strength_interval']):>20}")
         for key, what in (("same_population", "same in every lot"), ("same_modulus", "same modulus, scale may differ")):
