@@ -447,7 +447,8 @@ def reference_p_values(model: LotModel, free, tests: list[dict], calibrate: int 
     if calibrate == 0:
         return tests
     if calibrate is not None and calibrate < 19:
-        raise FlawmixError(f"calibrate needs at least 19 replicates (got {calibrate}); 199 or more is usual")
+        raise FlawmixError(f"--calibrate (calibrate=) needs at least 19 replicates, got {calibrate}; use 199 or more, "
+                           "or 0 for the χ² reference")
     if model.sized:
         if calibrate is not None:
             raise FlawmixError("calibrated tests for lots on several geometries are not available; use --calibrate 0")

@@ -194,3 +194,13 @@ def test_bootstrap_reference_keeps_its_size_with_unidentified_origins():
     assert kept > 390
     size = np.nanmean(same["p_same_population"] <= 0.05 + 1e-12, axis=0)
     assert np.all(np.abs(size - 0.05) < 3 * np.sqrt(0.05 * 0.95 / kept)), size
+
+
+def test_too_few_replicates_is_a_one_line_cli_error(tmp_path, capsys):
+    from flawmix.cli import main
+
+    path = tmp_path / "lots.csv"
+    _labelled_lots(6, lots=("a", "b")).to_csv(path, index=False)
+    assert main(["lots", str(path), "--calibrate", "5", "--quiet"]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and "needs at least 19 replicates, got 5" in err[0]
