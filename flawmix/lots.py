@@ -539,20 +539,16 @@ def _check_lots(lots: Lots) -> list[str]:
 
 def _per_lot_estimates(model: LotModel, free, lots: Lots, confidence: float, problems: list) -> list[list[dict]]:
     """[population][lot] estimate with profile-likelihood intervals in the free model."""
-    from .optimize import profile_interval
-
     lower, upper = model.bounds()
     sp = lots.specimens
     single = sp.failed & (sp.n_candidates == 1)
+    ends = [_lot_profile_ends(model, free, lot, confidence, problems) for lot in range(model.n_lots)]
     out = []
     for j in range(model.k):
         rows = []
         for l, lot in enumerate(lots.names):
             iu, iv = model.u_index(l, j), model.v_index(l, j)
-            a, b = profile_interval(model.derivatives, free, iu, confidence, lower=lower, upper=upper,
-                                    limits=(lower[iu], upper[iu]), problems=problems)
-            c, d = profile_interval(model.derivatives, free, iv, confidence, lower=lower, upper=upper,
-                                    problems=problems)
+            (a, b), (c, d) = ends[l][j], ends[l][model.k + j]
             b = math.inf if b >= upper[iu] - 1e-9 else b
             rows.append({"lot": lot, "n_failures": int((single & sp.candidates[:, j] & (lots.lot == l)).sum()),
                          "modulus": math.exp(free.theta[iu]),
@@ -561,6 +557,31 @@ def _per_lot_estimates(model: LotModel, free, lots: Lots, confidence: float, pro
                          "strength_interval": (math.exp(c + model.centre), math.exp(d + model.centre))})
         out.append(rows)
     return out
+
+
+def _lot_profile_ends(model: LotModel, free, lot: int, confidence: float, problems: list) -> list[tuple]:
+    """Profile-likelihood ends of one lot's 2k parameters ([u..., v...] order, centred). In
+    the free model a lot's copies are independent of the other lots, so the profile is that
+    of the lot's own concurrent likelihood (batched end points, endpoints.py); lots on several
+    geometries profile the whole sized model."""
+    from .endpoints import batched_profile_intervals
+    from .optimize import Optimum, profile_interval
+
+    lower, upper = model.bounds()
+    cols = model.columns(lot)
+    limits = lambda i: (lower[i], upper[i]) if i < model.k * model.n_lots else (-np.inf, np.inf)
+    if model.sized:
+        return [profile_interval(model.derivatives, free, int(i), confidence, lower=lower, upper=upper,
+                                 limits=limits(int(i)), problems=problems) for i in cols]
+    data, lo, hi = model.per_lot[lot], lower[cols], upper[cols]
+    derivatives = lambda t: lik.concurrent_derivatives(data, t)
+    ll, grad, hess = derivatives(free.theta[cols])
+    own = Optimum(free.theta[cols], ll, grad, hess, 0, free.converged)
+    own_limits = lambda i: (lo[i], hi[i]) if i < model.k else (-np.inf, np.inf)
+    ends = batched_profile_intervals(data, own, confidence, lo, hi, limits=own_limits, problems=problems)
+    return [ends[i] if i in ends else profile_interval(derivatives, own, i, confidence, lower=lo, upper=hi,
+                                                       limits=own_limits(i), problems=problems)
+            for i in range(2 * model.k)]
 
 
 def _overall_strength(moduli: np.ndarray, scales: np.ndarray, probability: float) -> float:
