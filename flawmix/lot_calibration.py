@@ -1,21 +1,23 @@
-"""Parametric-bootstrap p-values of the lot tests, batched in closed form for labelled lots.
+"""Parametric-bootstrap p-values of the lot tests, all replicates at once.
 
-With every failure's origin identified (survivors allowed) and every lot on one geometry,
-the log-likelihood of the lot model is a sum over populations and lots (DOMAIN.md
-section 2): population j of lot l is a censored Weibull sample of its own failures with
-every other specimen of that lot suspended. A test on population j then involves only
-population j:
+Campaigns are drawn from each test's own null fit with every lot's observed design and
+refitted free and tied. With every failure's origin identified (survivors allowed) and every
+lot on one geometry, the log-likelihood of the lot model is a sum over populations and lots
+(DOMAIN.md section 2): population j of lot l is a censored Weibull sample of its own
+failures with every other specimen of that lot suspended. A test on population j then
+involves only population j, in closed forms:
 
 - free: one censored fit per lot (censored.censored_weibull_mle);
 - "the same in every lot": one censored fit of the lots pooled;
 - "same modulus, scale may differ": one modulus and a scale per lot
   (censored.common_modulus_censored_mle);
 
-and the statistic is twice the difference of those log-likelihoods (likelihood.py's
-censored_derivatives_batch, the k = 1 case of the concurrent likelihood). The statistic of
-the observed table still comes from the general joint fit (lots.likelihood_ratio_tests);
-tests/test_lots.py checks that both give the same number. All bootstrap replicates are
-refitted at once, so 999 replicates cost a few tens of milliseconds per test.
+with the log-likelihoods from likelihood.py's censored_derivatives_batch (the k = 1 case of
+the concurrent likelihood). With unidentified or ambiguous origins the refits are batched
+damped-Newton ascents of the joint lot model (free lot by lot, tied in the tie's
+coordinates). The statistic of the observed table comes from the general joint fit
+(lots.likelihood_ratio_tests); tests/test_lot_calibration.py checks that both paths give
+it the same number.
 """
 from __future__ import annotations
 
@@ -28,7 +30,7 @@ from .simulate import Design, simulate
 DEFAULT_REPLICATES = 999            # labelled lots: closed forms, tens of milliseconds per test
 DEFAULT_REPLICATES_GENERAL = 299    # unidentified or ambiguous origins: batched Newton refits
 TESTS = ("same_population", "same_modulus")
-ASCENT_STEPS = 20          # refits still climbing after these creep towards an infinite modulus; their LR is already large
+ASCENT_STEPS = 20   # refits still climbing after these creep towards an infinite modulus; their LR is already large
 
 
 def applies(model) -> bool:
@@ -222,13 +224,13 @@ def general_statistics(model, batches, null: np.ndarray, tie: np.ndarray, free_s
 
 def bootstrap_p_values(model, tests: list[dict], replicates: int = DEFAULT_REPLICATES, seed=0,
                        keys=TESTS, bar=None, free_theta: np.ndarray | None = None) -> list[dict]:
-    """Replace each test's χ² p-value by its parametric-bootstrap p-value (labelled lots).
+    """Replace each test's χ² p-value by its parametric-bootstrap p-value (lots on one geometry).
 
     Campaigns are drawn from the test's own null fit (``test["theta"]``) with each lot's
     observed design, and p = (1 + #{LR* ≥ LR}) / (1 + usable replicates) (see
-    :func:`_bootstrap_p`; ``free_theta``, the observed free fit, is a second start of the
-    replicates' free refits on the general path). Adds ``p_value_chi2``, ``bartlett_factor`` and ``reference`` to
-    each test named in ``keys``."""
+    :func:`_bootstrap_p`). ``free_theta``, the observed free fit, is a second start of the
+    replicates' free refits on the general path. Adds ``p_value_chi2``, ``bartlett_factor``
+    and ``reference`` to each test named in ``keys``."""
     if model.sized:
         raise ValueError("the bootstrap of lots on several geometries is not available")
     labelled = applies(model)
