@@ -202,7 +202,8 @@ def _ascend(replicas: _Replicas, start: np.ndarray, tie: np.ndarray | None, step
     return ll
 
 
-def general_statistics(model, batches, null: np.ndarray, tie: np.ndarray, free_starts=()) -> tuple[np.ndarray, np.ndarray]:
+def general_statistics(model, batches, null: np.ndarray, tie: np.ndarray,
+                       free_starts=()) -> tuple[np.ndarray, np.ndarray]:
     """Likelihood-ratio statistics (R,) of replicate campaigns on the general path: the tied
     batched ascent started at the null fit they were drawn from, the free one the best of
     that start and ``free_starts`` (with unidentified origins the free likelihood can have
