@@ -10,6 +10,13 @@ closed form there, nothing under test computes it) and prints coverage ± one bi
 and the CPU of each.
 
     python studies/interval_inversion.py --replicates 400 --cells ratio3,rare [--seed 2026]
+
+Measured (seed 2026, 400 campaigns per cell; rare keeps the 394 with both populations),
+coverage % default → inverted: ratio3 m_a 86.8 → 86.8, m_b 87.5 → 87.5, σθ_a 92.0 → 92.2,
+σθ_b 92.2 → 92.5 (±1.3–1.7); rare m_a 90.4 → 88.8, m_b 89.8 → 89.3, σθ_a 86.3 → 86.3, σθ_b
+92.9 → 92.9 (±1.3–1.6), at about 1.4 CPU s per campaign for both. One inversion step does
+not lift the short cells. In ratio3 the misses of m_a are one-sided: the truth lies above
+the upper end in 9.0 % of sets and below the lower end in 4.2 % (5 % each is nominal).
 """
 from __future__ import annotations
 
