@@ -477,6 +477,11 @@ def section_lots(a: Analysis, figs, tables) -> list[str]:
                                           "p same modulus": "p_value"}))
     out.append(f'<p class="small">p-values: {_esc(reference_text(c))}.</p>')
     out.append(f'<p class="verdict">{_esc(c.verdict)}</p>')
+    changed = [p.name for p in c.populations if p.changed]
+    if changed:
+        out.append(f'<p class="caution">The lots differ ({_esc(", ".join(changed))} changed): the fits, figures and '
+                   "predictions of the other sections pool every lot and so mix them. Before they serve a design, "
+                   "analyse the lot that represents production on its own.</p>")
     out.append(figs.add("lots_probability_plots", plots.lot_probability_plot(c),
                         "Each population's failures lot by lot, at adjusted ranks within the lot, with each lot's own "
                         "fitted line; every panel on the same axes."))

@@ -186,6 +186,8 @@ def test_report_shows_the_lot_comparison_when_the_table_has_lots(tmp_path):
 
     assert html.escape(results["lots"]["verdict"].split(";")[0], quote=True) in page
     assert "p-values: parametric bootstrap of the null fit, 299 replicates." in page
+    # grinding changed in the example: the pooled sections are said to mix the lots
+    assert "The lots differ (grinding changed)" in page
     assert results["lots"]["populations"][0]["same_population"]["reference"].startswith("parametric bootstrap")
 
 
