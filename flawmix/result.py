@@ -267,8 +267,10 @@ class FitResult:
     def failure_probability(self, stress, approximate: bool = False) -> pd.DataFrame:
         """Failure probability of a test specimen at each stress: estimate and, when the fit
         carries draws (Bayes, bootstrap) or was calibrated (the default intervals of a
-        concurrent MLE: bootstrap-t on ln H(σ)), the interval at the result's confidence;
-        ``approximate=True`` lets a plain MLE use its normal-approximation draws."""
+        concurrent MLE: the profile likelihood of ln H(σ) cut at bootstrap-calibrated drops,
+        column ``interval_method``), the interval at the result's confidence;
+        ``approximate=True`` lets a plain MLE use its normal-approximation draws (cheap, for
+        plot bands)."""
         s = np.atleast_1d(np.asarray(stress, dtype=float))
         point = 1.0 - dist.model_sf_rows(self.model, s, *self._point_params(), self._partial_index)[0]
         samples = None
@@ -277,16 +279,44 @@ class FitResult:
             samples = 1.0 - dist.model_sf_rows(self.model, s, d.moduli, d.scales, d.fractions, self._partial_index)
             if self.method == "bayes":
                 point = np.median(samples, axis=0)
-        elif "calibration" in self.extras and "covariance" in self.extras:   # bootstrap-t from the refits that calibrated the fit
-            return self._calibrated_frame(point, s, "failure_probability_interval", f"stress ({self.unit})")
+        elif "calibration" in self.extras and "covariance" in self.extras:   # the refits that calibrated the fit
+            return self._calibrated_frame(point, s, "hazard", f"stress ({self.unit})")
         return _summary_frame(samples, point, self.confidence, pd.Index(s), f"stress ({self.unit})")
 
-    def _calibrated_frame(self, point, values, name: str, index_name: str) -> pd.DataFrame:
-        from . import calibration
+    def _calibrated_frame(self, point, values, kind: str, index_name: str) -> pd.DataFrame:
+        """Intervals of ψ = ln H(σ) (``kind`` hazard) or ln σ_p (quantile) from the kept
+        bootstrap campaigns: the calibrated profile (derived.py) where it exists, bootstrap-t
+        from the same refits where it does not; column ``interval_method`` says which."""
+        import warnings
 
-        bounds = [getattr(calibration, name)(self.extras["calibration"], self.extras["covariance"], float(x),
-                                             self.confidence) for x in values]
-        frame = pd.DataFrame({"estimate": point, "low": [b[0] for b in bounds], "high": [b[1] for b in bounds]},
+        from . import calibration, derived
+        from .errors import FlawmixWarning
+
+        cal, cov, observed = self.extras["calibration"], self.extras["covariance"], self.extras.get("fit_data")
+        values = np.asarray(values, dtype=float)
+        const = np.log(values) if kind == derived.HAZARD else np.log(-np.log1p(-values))
+        low, high = np.full(values.size, np.nan), np.full(values.size, np.nan)
+        usable, problems = np.zeros(values.size, bool), []
+        if observed is not None:
+            try:
+                low, high, usable, problems = derived.calibrated_intervals(cal, observed, kind, const, self.confidence)
+            except (np.linalg.LinAlgError, ValueError, FloatingPointError) as error:
+                problems = [f"the calibrated profile of a derived quantity failed ({error}); bootstrap-t is used"]
+        with np.errstate(over="ignore"):
+            low, high = (-np.expm1(-np.exp(low)), -np.expm1(-np.exp(high))) if kind == derived.HAZARD \
+                else (np.exp(low), np.exp(high))
+        fallback = calibration.failure_probability_interval if kind == derived.HAZARD else calibration.strength_interval
+        for i in np.flatnonzero(~usable):
+            low[i], high[i] = fallback(cal, cov, float(values[i]), self.confidence)
+        ends = np.concatenate([low[usable], high[usable]])
+        edge = (0.0, 1.0) if kind == derived.HAZARD else (0.0, np.inf)
+        if np.any((ends == edge[0]) | (ends == edge[1])):
+            problems.append("the data do not bound one side of a derived-quantity interval; it is reported "
+                            "at its limit (a failure probability of 0 or 1, a stress of 0 or unbounded)")
+        for line in dict.fromkeys(problems):
+            warnings.warn(line, FlawmixWarning, stacklevel=3)
+        frame = pd.DataFrame({"estimate": point, "low": low, "high": high,
+                              "interval_method": np.where(usable, derived.METHOD, derived.FALLBACK_METHOD)},
                              index=pd.Index(values))
         frame.index.name = index_name
         return frame
@@ -320,7 +350,7 @@ class FitResult:
             if self.method == "bayes":
                 point = np.median(samples, axis=0)
         elif "calibration" in self.extras and "covariance" in self.extras:
-            return self._calibrated_frame(point, ps, "strength_interval", "failure probability")
+            return self._calibrated_frame(point, ps, "quantile", "failure probability")
         return _summary_frame(samples, point, self.confidence, pd.Index(ps), "failure probability")
 
     def failure_share_intervals(self, stress) -> pd.DataFrame:
