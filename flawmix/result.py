@@ -302,15 +302,14 @@ class FitResult:
                 low, high, usable, problems = derived.calibrated_intervals(cal, observed, kind, const, self.confidence)
             except (np.linalg.LinAlgError, ValueError, FloatingPointError) as error:
                 problems = [f"the calibrated profile of a derived quantity failed ({error}); bootstrap-t is used"]
+        unbounded = np.isinf(low) | np.isinf(high)
         with np.errstate(over="ignore"):
             low, high = (-np.expm1(-np.exp(low)), -np.expm1(-np.exp(high))) if kind == derived.HAZARD \
                 else (np.exp(low), np.exp(high))
         fallback = calibration.failure_probability_interval if kind == derived.HAZARD else calibration.strength_interval
         for i in np.flatnonzero(~usable):
             low[i], high[i] = fallback(cal, cov, float(values[i]), self.confidence)
-        ends = np.concatenate([low[usable], high[usable]])
-        edge = (0.0, 1.0) if kind == derived.HAZARD else (0.0, np.inf)
-        if np.any((ends == edge[0]) | (ends == edge[1])):
+        if np.any(unbounded & usable):
             problems.append("the data do not bound one side of a derived-quantity interval; it is reported "
                             "at its limit (a failure probability of 0 or 1, a stress of 0 or unbounded)")
         for line in dict.fromkeys(problems):
