@@ -165,6 +165,11 @@ def test_frames_name_the_method_and_fall_back_to_bootstrap_t_without_campaigns(f
     np.testing.assert_allclose(old[["low", "high"]].to_numpy()[0], expected, rtol=1e-12)
 
 
+def test_a_stress_of_zero_or_infinity_has_its_exact_failure_probability(fitted):
+    frame = fitted.failure_probability([0.0, np.inf])
+    np.testing.assert_array_equal(frame[["estimate", "low", "high"]].to_numpy(), [[0, 0, 0], [1, 1, 1]])
+
+
 def test_batched_queries_equal_one_at_a_time(fitted):
     together = fitted.strength_at([0.01, 0.1, 0.5])
     alone = pd.concat([fitted.strength_at([p]) for p in (0.01, 0.1, 0.5)])
