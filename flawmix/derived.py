@@ -15,6 +15,7 @@ from . import likelihood as lik
 from .calibration import ASCENT_STEPS, CALIBRATED_METHOD, SIGNED_ROOT_CLIP, signed_root_drops
 
 HAZARD, QUANTILE = "hazard", "quantile"
+METHOD = CALIBRATED_METHOD   # the parameters' label: the same method
 FALLBACK_METHOD = "bootstrap-t (the calibrated profile was not available)"
 MIN_ROOTS = 50               # fewer usable bootstrap roots than this calibrate nothing
 MAX_CELLS = 250_000          # replicate rows × specimens × populations per batched ascent (larger
@@ -121,7 +122,8 @@ def derivatives(data: lik.Data, phi: np.ndarray, kind: str, const, ref, in_theta
     cross = -gv[:, :, None] * D                                                    # ∂²v_j/∂u_j∂α_a = −D_ja
     hess[:, :k, k:P - 1] += cross
     hess[:, k:P - 1, :k] += np.transpose(cross, (0, 2, 1))
-    weight = (gv / m).sum(axis=1)                                                  # ∂²v_j/∂α∂α = (diag s − s sᵀ)/m_j
+    # ∂²v_j/∂α∂α = (diag s − s sᵀ)/m_j, the same matrix for every j
+    weight = (gv / m).sum(axis=1)
     hess[:, k:P - 1, k:P - 1] += weight[:, None, None] * (
         np.eye(k - 1)[None] * s_o[:, :, None] - s_o[:, :, None] * s_o[:, None, :])
     if kind == HAZARD:                                                             # ∂²v_j/∂u_j∂h = 1/m_j
@@ -323,4 +325,47 @@ def calibrated_intervals(calibration, observed: lik.Data, kind: str, const_uncen
     return low, high, usable, problems
 
 
-METHOD = CALIBRATED_METHOD
+def interval_frame(result, point: np.ndarray, values: np.ndarray, kind: str, index_name: str):
+    """The frame a calibrated fit's ``failure_probability`` (``kind`` hazard, values: stresses)
+    or ``strength_at`` (quantile, values: probabilities) returns: estimate, low, high and
+    ``interval_method`` per value. The calibrated profile where its bootstrap roots exist,
+    bootstrap-t from the same refits where they do not; a side the data do not bound is at its
+    limit (P_f 0 or 1, a stress 0 or inf), with a warning."""
+    import warnings
+
+    import pandas as pd
+
+    from .calibration import failure_probability_interval, strength_interval
+    from .errors import FlawmixWarning
+
+    cal, cov, observed = result.extras["calibration"], result.extras["covariance"], result.extras.get("fit_data")
+    with np.errstate(divide="ignore", invalid="ignore"):
+        const = np.log(values) if kind == HAZARD else np.log(-np.log1p(-values))
+    low, high = np.full(values.size, np.nan), np.full(values.size, np.nan)
+    usable, problems = np.zeros(values.size, bool), []
+    asked = np.isfinite(const)   # a stress of 0 or infinity has P_f 0 or 1 under every parameter
+    if observed is not None and asked.any():
+        try:
+            low[asked], high[asked], usable[asked], problems = calibrated_intervals(
+                cal, observed, kind, const[asked], result.confidence)
+        except (np.linalg.LinAlgError, ValueError, FloatingPointError) as error:
+            problems = [f"the calibrated profile of a derived quantity failed ({error}); bootstrap-t is used"]
+    unbounded = np.isinf(low) | np.isinf(high)
+    with np.errstate(over="ignore"):
+        low, high = (-np.expm1(-np.exp(low)), -np.expm1(-np.exp(high))) if kind == HAZARD \
+            else (np.exp(low), np.exp(high))
+    fallback = failure_probability_interval if kind == HAZARD else strength_interval
+    for i in np.flatnonzero(~usable & asked):
+        low[i], high[i] = fallback(cal, cov, float(values[i]), result.confidence)
+    low[~asked], high[~asked] = point[~asked], point[~asked]
+    if np.any(unbounded & usable):
+        problems.append("the data do not bound one side of a derived-quantity interval; it is reported "
+                        "at its limit (a failure probability of 0 or 1, a stress of 0 or unbounded)")
+    for line in dict.fromkeys(problems):
+        warnings.warn(line, FlawmixWarning, stacklevel=4)
+    method = np.where(usable, METHOD, np.where(asked, FALLBACK_METHOD, np.where(
+        np.isnan(values), "none", "none (the same for every parameter value)")))
+    frame = pd.DataFrame({"estimate": point, "low": low, "high": high, "interval_method": method},
+                         index=pd.Index(values))
+    frame.index.name = index_name
+    return frame

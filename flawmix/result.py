@@ -284,47 +284,11 @@ class FitResult:
         return _summary_frame(samples, point, self.confidence, pd.Index(s), f"stress ({self.unit})")
 
     def _calibrated_frame(self, point, values, kind: str, index_name: str) -> pd.DataFrame:
-        """Intervals of ψ = ln H(σ) (``kind`` hazard) or ln σ_p (quantile) from the kept
-        bootstrap campaigns: the calibrated profile (derived.py) where it exists, bootstrap-t
-        from the same refits where it does not; column ``interval_method`` says which."""
-        import warnings
+        """Estimate, interval and ``interval_method`` of each value from the kept bootstrap
+        campaigns (derived.py: ``kind`` hazard for P_f(σ), quantile for σ(P_f))."""
+        from .derived import interval_frame
 
-        from . import calibration, derived
-        from .errors import FlawmixWarning
-
-        cal, cov, observed = self.extras["calibration"], self.extras["covariance"], self.extras.get("fit_data")
-        values = np.asarray(values, dtype=float)
-        with np.errstate(divide="ignore", invalid="ignore"):
-            const = np.log(values) if kind == derived.HAZARD else np.log(-np.log1p(-values))
-        low, high = np.full(values.size, np.nan), np.full(values.size, np.nan)
-        usable, problems = np.zeros(values.size, bool), []
-        asked = np.isfinite(const)   # a stress of 0 or infinity has P_f 0 or 1 under every parameter
-        if observed is not None and asked.any():
-            try:
-                found = derived.calibrated_intervals(cal, observed, kind, const[asked], self.confidence)
-                low[asked], high[asked], usable[asked], problems = found
-            except (np.linalg.LinAlgError, ValueError, FloatingPointError) as error:
-                problems = [f"the calibrated profile of a derived quantity failed ({error}); bootstrap-t is used"]
-        unbounded = np.isinf(low) | np.isinf(high)
-        with np.errstate(over="ignore"):
-            low, high = (-np.expm1(-np.exp(low)), -np.expm1(-np.exp(high))) if kind == derived.HAZARD \
-                else (np.exp(low), np.exp(high))
-        fallback = calibration.failure_probability_interval if kind == derived.HAZARD else calibration.strength_interval
-        for i in np.flatnonzero(~usable & asked):
-            low[i], high[i] = fallback(cal, cov, float(values[i]), self.confidence)
-        low[~asked], high[~asked] = point[~asked], point[~asked]
-        if np.any(unbounded & usable):
-            problems.append("the data do not bound one side of a derived-quantity interval; it is reported "
-                            "at its limit (a failure probability of 0 or 1, a stress of 0 or unbounded)")
-        for line in dict.fromkeys(problems):
-            warnings.warn(line, FlawmixWarning, stacklevel=3)
-        frame = pd.DataFrame({"estimate": point, "low": low, "high": high,
-                              "interval_method": np.where(usable, derived.METHOD, np.where(
-                                  asked, derived.FALLBACK_METHOD, np.where(np.isnan(values), "none",
-                                                                        "none (the same for every parameter value)")))},
-                             index=pd.Index(values))
-        frame.index.name = index_name
-        return frame
+        return interval_frame(self, np.asarray(point, dtype=float), np.asarray(values, dtype=float), kind, index_name)
 
     def population_failure_probability(self, name: str, stress, approximate: bool = False) -> pd.DataFrame:
         """Failure probability of a test specimen from population ``name`` acting alone, at

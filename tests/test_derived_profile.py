@@ -26,7 +26,7 @@ def fitted():
 
 def _setup(result, kind, value):
     cal = result.extras["calibration"]
-    k = result.populations.__len__()
+    k = len(result.populations)
     centre = cal.centre
     theta = cal.theta_hat - np.concatenate([np.zeros(k), np.full(k, centre)])
     const = np.array([np.log(value) - centre if kind == derived.HAZARD else np.log(-np.log1p(-value))])
@@ -64,7 +64,8 @@ def test_reparametrised_derivatives_match_finite_differences(kind, populations):
     for i in range(P):
         e = np.zeros(P)
         e[i] = step
-        numeric_grad[i] = (_loglik(one, kind, const, ref, phi + e) - _loglik(one, kind, const, ref, phi - e)) / (2 * step)
+        up, down = _loglik(one, kind, const, ref, phi + e), _loglik(one, kind, const, ref, phi - e)
+        numeric_grad[i] = (up - down) / (2 * step)
         numeric_hess[i] = (derived.derivatives(one, (phi + e)[None], kind, const, ref)[1][0]
                            - derived.derivatives(one, (phi - e)[None], kind, const, ref)[1][0]) / (2 * step)
     scale = np.abs(grad).max()
@@ -87,9 +88,9 @@ def test_held_profile_equals_a_brute_force_constrained_maximum(fitted, kind, que
     with np.errstate(all="ignore"):
         for s in range(6):
             start = theta + (np.random.default_rng(s).normal(0, 0.2, 2 * k) if s else 0.0)
+            held = {"type": "eq", "fun": lambda t: derived.psi_of(t[None], kind, const)[0] - target}
             found = optimize.minimize(lambda t: -lik.concurrent_loglik(one, t[:k], t[k:])[0], start, method="SLSQP",
-                                      constraints=[{"type": "eq", "fun": lambda t: derived.psi_of(t[None], kind, const)[0] - target}],
-                                      options={"ftol": 1e-14, "maxiter": 500})
+                                      constraints=[held], options={"ftol": 1e-14, "maxiter": 500})
             if found.success and abs(derived.psi_of(found.x[None], kind, const)[0] - target) < 1e-9:
                 best = max(best, -found.fun)
     assert np.isfinite(best)
