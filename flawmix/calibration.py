@@ -35,7 +35,8 @@ class Calibration:
     drops in log-likelihood below and above the estimate; used: replicates kept. For the
     derived quantities (derived.py) the kept campaigns themselves: ``data`` (R, N) with log
     strengths less ``centre`` (the mean observed log strength) and ``loglik`` (R,) the free
-    maximum of each on that centred scale."""
+    maximum of each on that centred scale; ``observed`` the fitted data (log strengths as
+    measured)."""
 
     theta_hat: np.ndarray
     theta: np.ndarray
@@ -48,6 +49,7 @@ class Calibration:
     data: lik.Data | None = field(default=None, repr=False, compare=False)
     loglik: np.ndarray | None = field(default=None, repr=False, compare=False)
     centre: float = 0.0
+    observed: lik.Data | None = field(default=None, repr=False, compare=False)
 
 
 def _ascend(data: lik.Data, theta: np.ndarray, free: np.ndarray, steps: int, tol: float):
@@ -177,7 +179,7 @@ def calibrate(specimens, moduli, scales, confidence: float, replicates: int = DE
         loglik = lik.concurrent_loglik(data, theta[:, :k], theta[:, k:])
     return Calibration(theta_hat, theta + shift, _inverse_information(hessian), roots,
                        signed_root_drops(roots, confidence), int(ok.sum()), int(replicates), seed,
-                       data, np.where(np.isfinite(loglik), loglik, np.nan), centre)
+                       data, np.where(np.isfinite(loglik), loglik, np.nan), centre, lik.Data.from_specimens(specimens))
 
 
 def signed_root_drops(roots: np.ndarray, confidence: float) -> np.ndarray:

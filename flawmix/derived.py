@@ -282,11 +282,17 @@ def profile_ends(observed: lik.Data, theta_hat: np.ndarray, centre: float, kind:
     lower[:k], upper[:k] = lik.LOG_MODULUS_MIN, lik.LOG_MODULUS_MAX
     for s in np.flatnonzero(~ok.reshape(S, 2).all(axis=1)):
         one = _centred(observed, centre, 1)
+        # a modulus at its bound at the maximum stays there (held: Newton cannot settle a
+        # coordinate whose score does not vanish, and the search crawled: 1.4 s against 0.2 s
+        # for one such set, whose ends moved by at most 4e-5 in P_f)
+        pinned = np.zeros(P, bool)
+        pinned[:k] = (phi_hat[s, :k] >= lik.LOG_MODULUS_MAX - 1e-9) | (phi_hat[s, :k] <= lik.LOG_MODULUS_MIN + 1e-9)
 
-        def single(phi, s=s):
+        def single(phi, s=s, pinned=pinned):
+            phi = np.where(pinned, phi_hat[s], phi)
             ll, g, H = derivatives(one, phi[None, :], kind, const[s:s + 1], ref[s:s + 1])
-            return float(ll[0]), g[0], H[0]
-        optimum = Optimum(phi_hat[s], float(ll_hat[s]), g_hat[s], H_hat[s], 0, True)
+            return float(ll[0]), *_pin(g[0], H[0], pinned)
+        optimum = Optimum(phi_hat[s], float(ll_hat[s]), *_pin(g_hat[s], H_hat[s], pinned), 0, True)
         # beyond these the answer is a failure probability of 0 or 1, or a stress e^20 away
         psi = phi_hat[s, -1]
         limits = (psi - 40.0, max(psi, 0.0) + 4.0) if kind == HAZARD else (psi - 20.0, psi + 20.0)
@@ -297,6 +303,17 @@ def profile_ends(observed: lik.Data, theta_hat: np.ndarray, centre: float, kind:
             if not ok[2 * s + side]:
                 ends[s, side] = found[side]
     return ends
+
+
+def _pin(gradient, hessian, pinned):
+    """Gradient and Hessian with the ``pinned`` coordinates made inert (zero score, unit
+    curvature), so a Newton search leaves them where they are."""
+    gradient, hessian = gradient.copy(), hessian.copy()
+    gradient[pinned] = 0.0
+    hessian[pinned, :] = 0.0
+    hessian[:, pinned] = 0.0
+    hessian[pinned, pinned] = -1.0
+    return gradient, hessian
 
 
 def calibrated_intervals(calibration, observed: lik.Data, kind: str, const_uncentred: np.ndarray,
@@ -338,7 +355,8 @@ def interval_frame(result, point: np.ndarray, values: np.ndarray, kind: str, ind
     from .calibration import failure_probability_interval, strength_interval
     from .errors import FlawmixWarning
 
-    cal, cov, observed = result.extras["calibration"], result.extras["covariance"], result.extras.get("fit_data")
+    cal, cov = result.extras["calibration"], result.extras.get("covariance")
+    observed = cal.observed
     with np.errstate(divide="ignore", invalid="ignore"):
         const = np.log(values) if kind == HAZARD else np.log(-np.log1p(-values))
     low, high = np.full(values.size, np.nan), np.full(values.size, np.nan)
@@ -355,7 +373,7 @@ def interval_frame(result, point: np.ndarray, values: np.ndarray, kind: str, ind
         low, high = (-np.expm1(-np.exp(low)), -np.expm1(-np.exp(high))) if kind == HAZARD \
             else (np.exp(low), np.exp(high))
     fallback = failure_probability_interval if kind == HAZARD else strength_interval
-    for i in np.flatnonzero(~usable & asked):
+    for i in np.flatnonzero(~usable & asked & (cov is not None)):   # no covariance: no bootstrap-t either
         low[i], high[i] = fallback(cal, cov, float(values[i]), result.confidence)
     low[~asked], high[~asked] = point[~asked], point[~asked]
     if np.any(unbounded & usable):

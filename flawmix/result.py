@@ -279,7 +279,7 @@ class FitResult:
             samples = 1.0 - dist.model_sf_rows(self.model, s, d.moduli, d.scales, d.fractions, self._partial_index)
             if self.method == "bayes":
                 point = np.median(samples, axis=0)
-        elif "calibration" in self.extras and "covariance" in self.extras:   # the refits that calibrated the fit
+        elif "calibration" in self.extras:   # the refits that calibrated the fit
             return self._calibrated_frame(point, s, "hazard", f"stress ({self.unit})")
         return _summary_frame(samples, point, self.confidence, pd.Index(s), f"stress ({self.unit})")
 
@@ -318,7 +318,7 @@ class FitResult:
                                 for p in ps], axis=1)
             if self.method == "bayes":
                 point = np.median(samples, axis=0)
-        elif "calibration" in self.extras and "covariance" in self.extras:
+        elif "calibration" in self.extras:
             return self._calibrated_frame(point, ps, "quantile", "failure probability")
         return _summary_frame(samples, point, self.confidence, pd.Index(ps), "failure probability")
 
