@@ -233,8 +233,8 @@ def bootstrap_roots(calibration, kind: str, const: np.ndarray) -> np.ndarray:
     for start in range(0, S, chunk):
         q = np.arange(start, min(S, start + chunk))
         rows = np.repeat(q, R)
-        tiled = lik.Data(np.tile(data.y, (q.size, 1)), np.tile(data.failed, (q.size, 1)),
-                         np.tile(data.candidates, (q.size, 1, 1)))
+        tiled = data if q.size == 1 else lik.Data(np.tile(data.y, (q.size, 1)), np.tile(data.failed, (q.size, 1)),
+                                                  np.tile(data.candidates, (q.size, 1, 1)))
         with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
             start_values = tuple(np.tile(a, (q.size,) + (1,) * (a.ndim - 1)) for a in at_truth)
             _, ll_held = held_ascent(tiled, phi_true[rows], kind, const[rows], ref[rows], in_theta=start_values)
