@@ -317,24 +317,31 @@ def _pin(gradient, hessian, pinned):
 
 
 def calibrated_intervals(calibration, observed: lik.Data, kind: str, const_uncentred: np.ndarray,
-                         confidence: float):
+                         confidence: float, cut: str = "calibrated"):
     """Calibrated profile intervals of ψ for S queries. ``const_uncentred``: ln σ0 (hazard)
     or ln(−ln(1 − p)) (quantile). Returns (low (S,), high (S,), usable (S,) bool, problems):
     ψ on the uncentred scale (ln H, or ln σ_p); ``usable`` False where too few bootstrap
-    roots exist (the caller falls back to bootstrap-t there)."""
+    roots exist (the caller falls back to bootstrap-t there). ``cut="chi2"``: the same
+    profile cut at χ²₁(confidence)/2 on both sides, no bootstrap (for the coverage study)."""
     k = calibration.theta_hat.size // 2
     centre = calibration.centre
     const = np.asarray(const_uncentred, dtype=float) - (centre if kind == HAZARD else 0.0)
     S = const.size
     low, high = np.full(S, np.nan), np.full(S, np.nan)
     problems: list[str] = []
-    if calibration.data is None:
-        return low, high, np.zeros(S, bool), problems
-    roots = bootstrap_roots(calibration, kind, const)
-    usable = np.isfinite(roots).sum(axis=1) >= MIN_ROOTS
-    if not usable.any():
-        return low, high, usable, problems
-    drops = signed_root_drops(roots[usable].T, confidence)
+    if cut == "chi2":
+        from .optimize import chi2_cutoff
+
+        usable = np.ones(S, bool)
+        drops = np.full((S, 2), chi2_cutoff(confidence))
+    else:
+        if calibration.data is None:
+            return low, high, np.zeros(S, bool), problems
+        roots = bootstrap_roots(calibration, kind, const)
+        usable = np.isfinite(roots).sum(axis=1) >= MIN_ROOTS
+        if not usable.any():
+            return low, high, usable, problems
+        drops = signed_root_drops(roots[usable].T, confidence)
     shift = np.concatenate([np.zeros(k), np.full(k, centre)])
     ends = profile_ends(observed, calibration.theta_hat - shift, centre, kind, const[usable], drops, problems)
     offset = centre if kind == QUANTILE else 0.0

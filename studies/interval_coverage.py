@@ -108,9 +108,12 @@ def run_cell(name, replicates, seed, intervals):
             print(f"  {name}: {type(error).__name__}: {error}", file=sys.stderr)
             continue
         seconds.append(time.perf_counter() - start)
-        if old is not None:   # the former default on the same refits, for comparison
+        if old is not None:   # the former default on the same refits, and the uncalibrated profile
             hits.setdefault("P_f(σ) bootstrap-t", []).append(covered(old[0], STRESS_PROBABILITY))
             hits.setdefault("σ(P_f) bootstrap-t", []).append(covered(old[1], strength_truth))
+            plain = chi2_profile(result, stress, STRENGTH_PROBABILITY)
+            hits.setdefault("P_f(σ) χ² profile", []).append(covered(plain[0], STRESS_PROBABILITY))
+            hits.setdefault("σ(P_f) χ² profile", []).append(covered(plain[1], strength_truth))
         for column, quantity in ((fp, "P_f(σ)"), (sp, "σ(P_f)")):
             if "interval_method" in column:
                 methods.add(f"{quantity}: {column['interval_method'].iloc[0]}")
@@ -131,6 +134,22 @@ def run_cell(name, replicates, seed, intervals):
                      "binomial se": math.sqrt(c * (1 - c) / len(h))})
     derived_median = float(np.median(derived_seconds)) if derived_seconds else math.nan
     return rows, errors, float(np.median(seconds)) if seconds else math.nan, sorted(methods), derived_median
+
+
+def chi2_profile(result, stress, probability):
+    """The same profiles of ln H(σ) and ln σ_p cut at the χ² drop (no bootstrap), mapped to
+    (P_f low, high) and (σ low, high)."""
+    from flawmix import derived
+
+    calibration = result.extras["calibration"]
+    with np.errstate(over="ignore"):
+        low, high, _, _ = derived.calibrated_intervals(calibration, calibration.observed, derived.HAZARD,
+                                                       np.log([stress]), result.confidence, cut="chi2")
+        fp = (-math.expm1(-math.exp(low[0])), -math.expm1(-math.exp(high[0])))
+        low, high, _, _ = derived.calibrated_intervals(calibration, calibration.observed, derived.QUANTILE,
+                                                       np.log([-math.log1p(-probability)]), result.confidence,
+                                                       cut="chi2")
+    return fp, (math.exp(low[0]), math.exp(high[0]))
 
 
 def bootstrap_t(result, stress, probability):
