@@ -3,11 +3,13 @@
 Campaigns drawn from the fitted model with the observed design are refitted all at once.
 For each parameter the signed root of its profile likelihood-ratio statistic at the
 bootstrap truth gives the cut-offs (mean and spread of the signed root, which removes its
-bias and scale error); for derived quantities the same refits give bootstrap-t intervals.
+bias and scale error). The campaigns are kept for the derived quantities (derived.py: the
+same calibrated profile for ln H(σ) and ln σ_p); the bootstrap-t intervals below, from the
+same refits, are its fallback.
 """
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 from scipy import stats as _sstats
@@ -30,7 +32,11 @@ class Calibration:
     theta: (R, 2k) refitted [ln m, ln σθ]; covariance: (R, 2k, 2k) their inverse observed
     information (NaN where singular); signed_roots: (R, 2k) signed root of each parameter's
     profile likelihood-ratio statistic at the fitted value; drops: (2k, 2) the calibrated
-    drops in log-likelihood below and above the estimate; used: replicates kept."""
+    drops in log-likelihood below and above the estimate; used: replicates kept. For the
+    derived quantities (derived.py) the kept campaigns themselves: ``data`` (R, N) with log
+    strengths less ``centre`` (the mean observed log strength) and ``loglik`` (R,) the free
+    maximum of each on that centred scale; ``observed`` the fitted data (log strengths as
+    measured)."""
 
     theta_hat: np.ndarray
     theta: np.ndarray
@@ -40,6 +46,10 @@ class Calibration:
     used: int
     replicates: int
     seed: object
+    data: lik.Data | None = field(default=None, repr=False, compare=False)
+    loglik: np.ndarray | None = field(default=None, repr=False, compare=False)
+    centre: float = 0.0
+    observed: lik.Data | None = field(default=None, repr=False, compare=False)
 
 
 def _ascend(data: lik.Data, theta: np.ndarray, free: np.ndarray, steps: int, tol: float):
@@ -165,8 +175,11 @@ def calibrate(specimens, moduli, scales, confidence: float, replicates: int = DE
         with np.errstate(over="ignore", invalid="ignore"):
             theta, roots, hessian = _refits(data, theta_hat - shift)
     roots = np.clip(np.where(np.isfinite(roots), roots, np.nan), -SIGNED_ROOT_CLIP, SIGNED_ROOT_CLIP)
+    with np.errstate(over="ignore", invalid="ignore"):
+        loglik = lik.concurrent_loglik(data, theta[:, :k], theta[:, k:])
     return Calibration(theta_hat, theta + shift, _inverse_information(hessian), roots,
-                       signed_root_drops(roots, confidence), int(ok.sum()), int(replicates), seed)
+                       signed_root_drops(roots, confidence), int(ok.sum()), int(replicates), seed,
+                       data, np.where(np.isfinite(loglik), loglik, np.nan), centre, lik.Data.from_specimens(specimens))
 
 
 def signed_root_drops(roots: np.ndarray, confidence: float) -> np.ndarray:

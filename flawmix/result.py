@@ -267,8 +267,10 @@ class FitResult:
     def failure_probability(self, stress, approximate: bool = False) -> pd.DataFrame:
         """Failure probability of a test specimen at each stress: estimate and, when the fit
         carries draws (Bayes, bootstrap) or was calibrated (the default intervals of a
-        concurrent MLE: bootstrap-t on ln H(σ)), the interval at the result's confidence;
-        ``approximate=True`` lets a plain MLE use its normal-approximation draws."""
+        concurrent MLE: the profile likelihood of ln H(σ) cut at bootstrap-calibrated drops,
+        column ``interval_method``), the interval at the result's confidence;
+        ``approximate=True`` lets a plain MLE use its normal-approximation draws (cheap, for
+        plot bands)."""
         s = np.atleast_1d(np.asarray(stress, dtype=float))
         point = 1.0 - dist.model_sf_rows(self.model, s, *self._point_params(), self._partial_index)[0]
         samples = None
@@ -277,19 +279,16 @@ class FitResult:
             samples = 1.0 - dist.model_sf_rows(self.model, s, d.moduli, d.scales, d.fractions, self._partial_index)
             if self.method == "bayes":
                 point = np.median(samples, axis=0)
-        elif "calibration" in self.extras and "covariance" in self.extras:   # bootstrap-t from the refits that calibrated the fit
-            return self._calibrated_frame(point, s, "failure_probability_interval", f"stress ({self.unit})")
+        elif "calibration" in self.extras:   # the refits that calibrated the fit
+            return self._calibrated_frame(point, s, "hazard", f"stress ({self.unit})")
         return _summary_frame(samples, point, self.confidence, pd.Index(s), f"stress ({self.unit})")
 
-    def _calibrated_frame(self, point, values, name: str, index_name: str) -> pd.DataFrame:
-        from . import calibration
+    def _calibrated_frame(self, point, values, kind: str, index_name: str) -> pd.DataFrame:
+        """Estimate, interval and ``interval_method`` of each value from the kept bootstrap
+        campaigns (derived.py: ``kind`` hazard for P_f(σ), quantile for σ(P_f))."""
+        from .derived import interval_frame
 
-        bounds = [getattr(calibration, name)(self.extras["calibration"], self.extras["covariance"], float(x),
-                                             self.confidence) for x in values]
-        frame = pd.DataFrame({"estimate": point, "low": [b[0] for b in bounds], "high": [b[1] for b in bounds]},
-                             index=pd.Index(values))
-        frame.index.name = index_name
-        return frame
+        return interval_frame(self, np.asarray(point, dtype=float), np.asarray(values, dtype=float), kind, index_name)
 
     def population_failure_probability(self, name: str, stress, approximate: bool = False) -> pd.DataFrame:
         """Failure probability of a test specimen from population ``name`` acting alone, at
@@ -319,8 +318,8 @@ class FitResult:
                                 for p in ps], axis=1)
             if self.method == "bayes":
                 point = np.median(samples, axis=0)
-        elif "calibration" in self.extras and "covariance" in self.extras:
-            return self._calibrated_frame(point, ps, "strength_interval", "failure probability")
+        elif "calibration" in self.extras:
+            return self._calibrated_frame(point, ps, "quantile", "failure probability")
         return _summary_frame(samples, point, self.confidence, pd.Index(ps), "failure probability")
 
     def failure_share_intervals(self, stress) -> pd.DataFrame:

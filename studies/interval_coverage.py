@@ -88,6 +88,7 @@ def run_cell(name, replicates, seed, intervals):
     strength_truth = true_quantile(STRENGTH_PROBABILITY, cell["moduli"], cell["scales"])
     hits: dict[str, list[bool]] = {}
     errors, seconds, methods = 0, [], set()
+    derived_seconds = []
     for _ in range(replicates):
         frame = draw_campaign(cell, rng, censor)
         start = time.perf_counter()
@@ -95,15 +96,27 @@ def run_cell(name, replicates, seed, intervals):
             with warnings.catch_warnings():
                 warnings.simplefilter("ignore")
                 result = fm.fit(frame, intervals=intervals)
+                queried = time.process_time()
                 fp = result.failure_probability(stress)
                 if "low" not in fp:   # no default interval: the normal approximation, for comparison
                     fp = result.failure_probability(stress, approximate=True)
                 sp = result.strength_at(STRENGTH_PROBABILITY)
+                derived_seconds.append((time.process_time() - queried) / 2)
+                old = bootstrap_t(result, stress, STRENGTH_PROBABILITY)
         except Exception as error:   # a crash is a result of the study, counted and shown
             errors += 1
             print(f"  {name}: {type(error).__name__}: {error}", file=sys.stderr)
             continue
         seconds.append(time.perf_counter() - start)
+        if old is not None:   # the former default on the same refits, and the uncalibrated profile
+            hits.setdefault("P_f(σ) bootstrap-t", []).append(covered(old[0], STRESS_PROBABILITY))
+            hits.setdefault("σ(P_f) bootstrap-t", []).append(covered(old[1], strength_truth))
+            plain = chi2_profile(result, stress, STRENGTH_PROBABILITY)
+            hits.setdefault("P_f(σ) χ² profile", []).append(covered(plain[0], STRESS_PROBABILITY))
+            hits.setdefault("σ(P_f) χ² profile", []).append(covered(plain[1], strength_truth))
+        for column, quantity in ((fp, "P_f(σ)"), (sp, "σ(P_f)")):
+            if "interval_method" in column:
+                methods.add(f"{quantity}: {column['interval_method'].iloc[0]}")
         for p in result.populations:
             j = ord(p.name) - ord("a")   # by name: a set whose failures all came from b has one population
             hits.setdefault(f"m_{p.name}", []).append(covered(p.modulus_interval, cell["moduli"][j]))
@@ -119,7 +132,36 @@ def run_cell(name, replicates, seed, intervals):
         c = float(np.mean(h))
         rows.append({"cell": name, "quantity": quantity, "data sets": len(h), "coverage": c,
                      "binomial se": math.sqrt(c * (1 - c) / len(h))})
-    return rows, errors, float(np.median(seconds)) if seconds else math.nan, sorted(methods)
+    derived_median = float(np.median(derived_seconds)) if derived_seconds else math.nan
+    return rows, errors, float(np.median(seconds)) if seconds else math.nan, sorted(methods), derived_median
+
+
+def chi2_profile(result, stress, probability):
+    """The same profiles of ln H(σ) and ln σ_p cut at the χ² drop (no bootstrap), mapped to
+    (P_f low, high) and (σ low, high)."""
+    from flawmix import derived
+
+    calibration = result.extras["calibration"]
+    with np.errstate(over="ignore"):
+        low, high, _, _ = derived.calibrated_intervals(calibration, calibration.observed, derived.HAZARD,
+                                                       np.log([stress]), result.confidence, cut="chi2")
+        fp = (-math.expm1(-math.exp(low[0])), -math.expm1(-math.exp(high[0])))
+        low, high, _, _ = derived.calibrated_intervals(calibration, calibration.observed, derived.QUANTILE,
+                                                       np.log([-math.log1p(-probability)]), result.confidence,
+                                                       cut="chi2")
+    return fp, (math.exp(low[0]), math.exp(high[0]))
+
+
+def bootstrap_t(result, stress, probability):
+    """The bootstrap-t intervals of P_f(σ) and σ(P_f) from the refits of a calibrated fit (the
+    former default), or None for a fit without them."""
+    from flawmix.calibration import failure_probability_interval, strength_interval
+
+    calibration, covariance = result.extras.get("calibration"), result.extras.get("covariance")
+    if calibration is None or covariance is None:
+        return None
+    return (failure_probability_interval(calibration, covariance, stress, result.confidence),
+            strength_interval(calibration, covariance, probability, result.confidence))
 
 
 def main(argv=None):
@@ -131,10 +173,10 @@ def main(argv=None):
     args = parser.parse_args(argv)
     all_rows = []
     for name in args.cells.split(","):
-        rows, errors, median, methods = run_cell(name, args.replicates, args.seed, args.intervals)
+        rows, errors, median, methods, derived = run_cell(name, args.replicates, args.seed, args.intervals)
         all_rows.extend(rows)
-        print(f"{name}: {CELLS[name]}; crashes {errors}; median fit {median * 1000:.0f} ms; methods {methods}",
-              flush=True)
+        print(f"{name}: {CELLS[name]}; crashes {errors}; median fit and queries {median * 1000:.0f} ms "
+              f"(median CPU per derived query {derived * 1000:.0f} ms); methods {methods}", flush=True)
         for r in rows:
             print(f"  {r['quantity']:8s} {100 * r['coverage']:5.1f} % ± {100 * r['binomial se']:.1f} "
                   f"({r['data sets']} data sets)", flush=True)

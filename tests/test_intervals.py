@@ -288,7 +288,7 @@ def _coverage_rows(cell, replicates=400, seed=2026):
     sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "studies"))
     from interval_coverage import run_cell
 
-    rows, crashes, _, methods = run_cell(cell, replicates, seed, "auto")
+    rows, crashes, _, methods, _ = run_cell(cell, replicates, seed, "auto")
     assert crashes == 0
     return {r["quantity"]: r for r in rows}, methods
 
@@ -303,7 +303,9 @@ def test_default_intervals_of_moduli_and_strengths_reach_nominal_coverage(cell):
     se = np.sqrt(0.9 * 0.1 / 400)
     for quantity in ("m_a", "σθ_a", "m_b", "σθ_b"):
         assert 0.90 - 2.5 * se <= rows[quantity]["coverage"] <= 0.96, (quantity, rows[quantity])
-    # failure probability at a stress and the stress at 5 %: bootstrap-t, which the study
-    # measured at 82 % to 88 % here (below nominal; see DEVELOPERS.md). A floor, not a claim.
+    # failure probability at a stress and the stress at 5 %: the calibrated profile
+    # (derived.py), which the study measured at 84.5 % to 88.2 % here (below nominal in the
+    # issue cell; see DEVELOPERS.md). A floor, not a claim.
     for quantity in ("P_f(σ)", "σ(P_f)"):
-        assert rows[quantity]["coverage"] >= 0.78, (quantity, rows[quantity])
+        assert f"{quantity}: profile (bootstrap-calibrated cut-off)" in methods
+        assert rows[quantity]["coverage"] >= 0.80, (quantity, rows[quantity])
