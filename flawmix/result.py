@@ -267,8 +267,8 @@ class FitResult:
     def failure_probability(self, stress, approximate: bool = False) -> pd.DataFrame:
         """Failure probability of a test specimen at each stress: estimate and, when the fit
         carries draws (Bayes, bootstrap) or was calibrated (the default intervals of a
-        concurrent MLE: the profile likelihood of ln H(σ) cut at bootstrap-calibrated drops,
-        column ``interval_method``), the interval at the result's confidence;
+        concurrent MLE: the profile likelihood of ln H(σ) cut at the χ² drop, column
+        ``interval_method``), the interval at the result's confidence;
         ``approximate=True`` lets a plain MLE use its normal-approximation draws (cheap, for
         plot bands)."""
         s = np.atleast_1d(np.asarray(stress, dtype=float))

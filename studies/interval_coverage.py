@@ -108,12 +108,12 @@ def run_cell(name, replicates, seed, intervals):
             print(f"  {name}: {type(error).__name__}: {error}", file=sys.stderr)
             continue
         seconds.append(time.perf_counter() - start)
-        if old is not None:   # the former default on the same refits, and the uncalibrated profile
+        if old is not None:   # former defaults on the same refits: bootstrap-t, the calibrated profile
             hits.setdefault("P_f(σ) bootstrap-t", []).append(covered(old[0], STRESS_PROBABILITY))
             hits.setdefault("σ(P_f) bootstrap-t", []).append(covered(old[1], strength_truth))
-            plain = chi2_profile(result, stress, STRENGTH_PROBABILITY)
-            hits.setdefault("P_f(σ) χ² profile", []).append(covered(plain[0], STRESS_PROBABILITY))
-            hits.setdefault("σ(P_f) χ² profile", []).append(covered(plain[1], strength_truth))
+            calibrated = other_cut(result, stress, STRENGTH_PROBABILITY, "calibrated")
+            hits.setdefault("P_f(σ) calibrated profile", []).append(covered(calibrated[0], STRESS_PROBABILITY))
+            hits.setdefault("σ(P_f) calibrated profile", []).append(covered(calibrated[1], strength_truth))
         for column, quantity in ((fp, "P_f(σ)"), (sp, "σ(P_f)")):
             if "interval_method" in column:
                 methods.add(f"{quantity}: {column['interval_method'].iloc[0]}")
@@ -136,19 +136,19 @@ def run_cell(name, replicates, seed, intervals):
     return rows, errors, float(np.median(seconds)) if seconds else math.nan, sorted(methods), derived_median
 
 
-def chi2_profile(result, stress, probability):
-    """The same profiles of ln H(σ) and ln σ_p cut at the χ² drop (no bootstrap), mapped to
-    (P_f low, high) and (σ low, high)."""
+def other_cut(result, stress, probability, cut):
+    """The same profiles of ln H(σ) and ln σ_p cut at ``cut`` (``calibrated``: the bootstrap
+    drops; ``chi2``: the default), mapped to (P_f low, high) and (σ low, high)."""
     from flawmix import derived
 
     calibration = result.extras["calibration"]
     with np.errstate(over="ignore"):
         low, high, _, _ = derived.calibrated_intervals(calibration, calibration.observed, derived.HAZARD,
-                                                       np.log([stress]), result.confidence, cut="chi2")
+                                                       np.log([stress]), result.confidence, cut=cut)
         fp = (-math.expm1(-math.exp(low[0])), -math.expm1(-math.exp(high[0])))
         low, high, _, _ = derived.calibrated_intervals(calibration, calibration.observed, derived.QUANTILE,
                                                        np.log([-math.log1p(-probability)]), result.confidence,
-                                                       cut="chi2")
+                                                       cut=cut)
     return fp, (math.exp(low[0]), math.exp(high[0]))
 
 

@@ -146,22 +146,26 @@ def test_calibrated_profile_of_one_complete_population_agrees_with_the_exact_piv
         m, _, scale = stats.weibull_min.fit(s, floc=0)
         r = fm.fit(pd.DataFrame({"strength": s}), intervals="calibrated", seed=seed)
         for stress in (380.0, 450.0):
-            frame = r.failure_probability([stress])
-            assert frame["interval_method"].iloc[0] == derived.METHOD
-            profile = np.log(-np.log1p(-frame[["low", "high"]].to_numpy()[0]))
+            point = r.failure_probability([stress])["estimate"].to_numpy()
             lo, hi = exact(m * np.log(stress / scale))
-            np.testing.assert_allclose(profile, [lo, hi], atol=0.1 * (hi - lo))
+            for cut, method, tolerance in (("calibrated", derived.METHOD, 0.1), ("chi2", derived.CHI2_METHOD, 0.2)):
+                frame = derived.interval_frame(r, point, np.array([stress]), derived.HAZARD, "stress", cut=cut)
+                assert frame["interval_method"].iloc[0] == method
+                profile = np.log(-np.log1p(-frame[["low", "high"]].to_numpy()[0]))
+                np.testing.assert_allclose(profile, [lo, hi], atol=tolerance * (hi - lo))
+            assert r.failure_probability([stress])["interval_method"].iloc[0] == derived.CHI2_METHOD   # the default
 
 
 def test_frames_name_the_method_and_fall_back_to_bootstrap_t_without_campaigns(fitted):
     pf = fitted.failure_probability([300.0, 380.0])
     sp = fitted.strength_at([0.01, 0.1])
-    assert set(pf["interval_method"]) == set(sp["interval_method"]) == {derived.METHOD}
+    assert set(pf["interval_method"]) == set(sp["interval_method"]) == {derived.CHI2_METHOD}
     assert np.all((0 < pf["low"]) & (pf["low"] < pf["estimate"]) & (pf["estimate"] < pf["high"]) & (pf["high"] < 1))
     assert np.all((sp["low"] < sp["estimate"]) & (sp["estimate"] < sp["high"]))
     cal = fitted.extras["calibration"]
     bare = dataclasses.replace(fitted, extras={**fitted.extras, "calibration": dataclasses.replace(cal, data=None)})
-    old = bare.failure_probability([300.0])
+    point = bare.failure_probability([300.0])["estimate"].to_numpy()
+    old = derived.interval_frame(bare, point, np.array([300.0]), derived.HAZARD, "stress", cut="calibrated")
     assert old["interval_method"].iloc[0] == derived.FALLBACK_METHOD
     expected = calibration.failure_probability_interval(cal, fitted.extras["covariance"], 300.0, fitted.confidence)
     np.testing.assert_allclose(old[["low", "high"]].to_numpy()[0], expected, rtol=1e-12)
@@ -225,4 +229,4 @@ def test_derived_intervals_on_hard_sets_never_crash_and_hold_the_estimate():
             for table in (r.failure_probability([250.0, 350.0]), r.strength_at([0.01, 0.2])):
                 assert np.all(table["low"] <= table["estimate"]) and np.all(table["estimate"] <= table["high"])
                 methods.update(table["interval_method"])
-    assert methods == {derived.METHOD}
+    assert methods == {derived.CHI2_METHOD}

@@ -303,9 +303,9 @@ def test_default_intervals_of_moduli_and_strengths_reach_nominal_coverage(cell):
     se = np.sqrt(0.9 * 0.1 / 400)
     for quantity in ("m_a", "σθ_a", "m_b", "σθ_b"):
         assert 0.90 - 2.5 * se <= rows[quantity]["coverage"] <= 0.96, (quantity, rows[quantity])
-    # failure probability at a stress and the stress at 5 %: the calibrated profile
-    # (derived.py), which the study measured at 84.5 % to 88.2 % here (below nominal in the
-    # issue cell; see DEVELOPERS.md). A floor, not a claim.
+    # failure probability at a stress and the stress at 5 %: the profile of ln H(σ) and
+    # ln σ_p cut at χ² (derived.py), measured at 87.5 % to 88.5 % in these cells (the
+    # bootstrap-calibrated cut: 84.5 to 88.2 %; DEVELOPERS.md): the same 2.5-SE rule
     for quantity in ("P_f(σ)", "σ(P_f)"):
-        assert f"{quantity}: profile (bootstrap-calibrated cut-off)" in methods
-        assert rows[quantity]["coverage"] >= 0.80, (quantity, rows[quantity])
+        assert f"{quantity}: profile (χ² cut-off)" in methods
+        assert 0.90 - 2.5 * se <= rows[quantity]["coverage"] <= 0.96, (quantity, rows[quantity])
