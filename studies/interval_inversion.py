@@ -21,7 +21,6 @@ the upper end in 9.0 % of sets and below the lower end in 4.2 % (5 % each is nom
 from __future__ import annotations
 
 import argparse
-import math
 import sys
 import time
 import warnings

@@ -1,6 +1,5 @@
 """Invariances that must hold for any data (hypothesis property tests)."""
 import numpy as np
-import pandas as pd
 from hypothesis import HealthCheck, given, settings, strategies as st
 
 import flawmix as fm

@@ -10,7 +10,7 @@ import pytest
 
 import flawmix as fm
 from flawmix.geometry import Geometry
-from flawmix.predict import predict, scaled_strengths, what_if
+from flawmix.predict import predict, what_if
 from flawmix.scaling import ElementTable, RingOnRing, flexure_bar, flexure_rod, effective_size
 
 # DOMAIN.md section 4 [pub: ASTM C1683; Quinn 2003 — re-derived and integrated, calc]
