@@ -19,7 +19,7 @@ METHOD = CALIBRATED_METHOD   # the parameters' label: the same method
 CHI2_METHOD = "profile (χ² cut-off)"
 # The default cut of the derived intervals. Measured with studies/interval_coverage.py
 # (400 sets per cell, seed 2026, same data sets): the χ² cut covered 87.5–92.5 % (mean
-# 89.3 %, no cell more than 2 SE below 90), the bootstrap-calibrated cut 84.5–91.5 % (mean
+# 89.2 %, no cell more than 2 SE below 90), the bootstrap-calibrated cut 84.5–91.5 % (mean
 # 87.7 %, four cells short), because the bootstrap signed roots of ψ come out narrower than
 # the root's spread across data sets; χ² is also ~15× cheaper (no held ascents).
 DEFAULT_CUT = "chi2"
