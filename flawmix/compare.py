@@ -271,8 +271,10 @@ def _single_alternatives_note(tests) -> str:
     if not alone:
         return ""
     said = " and ".join(f"'{t.name.split('-vs-')[1]}' (p = {t.p_value:.2g})" for t in alone)
-    tests_word = "the χ² tests" if len(alone) > 1 else "the χ² test"
-    return (f"On their own, {tests_word} against {said} reject one population at the 5 % level; the bootstrap test above "
+    several = len(alone) > 1
+    tests_word = "On their own, the χ² tests" if several else "On its own, the χ² test"
+    return (f"{tests_word} against {said} {'reject' if several else 'rejects'} one population at the 5 % level; "
+            "the bootstrap test above "
             "allows for trying both alternatives and decides, so the evidence for several populations is "
             "suggestive, not established. ")
 
