@@ -659,8 +659,9 @@ def compare_lots(lots, populations=None, *, study=None, method: str = "mle", con
     order: the lot names in order (the first is the baseline; default the study's lots,
     else their order of appearance).
     calibrate: the tests' reference distribution (:func:`reference_p_values`): None, the
-    default, is a 999-replicate parametric bootstrap for labelled lots on one geometry and
-    χ² otherwise; 0 is χ² always; a count is that many bootstrap replicates.
+    default, is a parametric bootstrap for lots on one geometry (999 replicates when every
+    origin is identified, 299 otherwise) and χ² for lots on several geometries; 0 is χ²
+    always; a count is that many bootstrap replicates.
     """
     from . import progress as _progress
 
