@@ -34,9 +34,8 @@ class Calibration:
     profile likelihood-ratio statistic at the fitted value; drops: (2k, 2) the calibrated
     drops in log-likelihood below and above the estimate; used: replicates kept. For the
     derived quantities (derived.py) the kept campaigns themselves: ``data`` (R, N) with log
-    strengths less ``centre`` (the mean observed log strength) and ``loglik`` (R,) the free
-    maximum of each on that centred scale; ``observed`` the fitted data (log strengths as
-    measured)."""
+    strengths less ``centre`` (the mean observed log strength); ``observed`` the fitted data
+    (log strengths as measured)."""
 
     theta_hat: np.ndarray
     theta: np.ndarray
@@ -47,7 +46,6 @@ class Calibration:
     replicates: int
     seed: object
     data: lik.Data | None = field(default=None, repr=False, compare=False)
-    loglik: np.ndarray | None = field(default=None, repr=False, compare=False)
     centre: float = 0.0
     observed: lik.Data | None = field(default=None, repr=False, compare=False)
 
@@ -175,11 +173,9 @@ def calibrate(specimens, moduli, scales, confidence: float, replicates: int = DE
         with np.errstate(over="ignore", invalid="ignore"):
             theta, roots, hessian = _refits(data, theta_hat - shift)
     roots = np.clip(np.where(np.isfinite(roots), roots, np.nan), -SIGNED_ROOT_CLIP, SIGNED_ROOT_CLIP)
-    with np.errstate(over="ignore", invalid="ignore"):
-        loglik = lik.concurrent_loglik(data, theta[:, :k], theta[:, k:])
     return Calibration(theta_hat, theta + shift, _inverse_information(hessian), roots,
                        signed_root_drops(roots, confidence), int(ok.sum()), int(replicates), seed,
-                       data, np.where(np.isfinite(loglik), loglik, np.nan), centre, lik.Data.from_specimens(specimens))
+                       data, centre, lik.Data.from_specimens(specimens))
 
 
 def signed_root_drops(roots: np.ndarray, confidence: float) -> np.ndarray:

@@ -221,11 +221,14 @@ def bootstrap_roots(calibration, kind: str, const: np.ndarray) -> np.ndarray:
     """(S, R) signed roots r* = sign(ψ̂* − ψ_true)·√(2[ℓ*_free − ℓ*(ψ_true)]) of the kept
     campaigns for S queries (``const``: centred ln σ0 for hazard, ln(−ln(1 − p)) for quantile),
     NaN where a campaign gives none; clipped like the parameters' roots."""
-    data, ll_free = calibration.data, calibration.loglik
+    data = calibration.data
     R, N, k = data.candidates.shape
     shift = np.concatenate([np.zeros(k), np.full(k, calibration.centre)])
     truth = calibration.theta_hat - shift
     refits = calibration.theta - shift
+    with np.errstate(over="ignore", invalid="ignore"):   # each campaign's free maximum (centred scale)
+        ll_free = lik.concurrent_loglik(data, refits[:, :k], refits[:, k:])
+    ll_free = np.where(np.isfinite(ll_free), ll_free, np.nan)
     const = np.asarray(const, dtype=float)
     S = const.size
     phi_true, ref = to_phi(np.broadcast_to(truth, (S, 2 * k)).copy(), kind, const)
