@@ -1,4 +1,4 @@
-"""Prototype: size of the "same in every lot" test with a batched labelled bootstrap (not yet in flawmix.lots).
+"""Size of the "same in every lot" test with a batched labelled bootstrap, against χ² and a Bartlett factor.
 
 Same invented truth as studies/lots_size_power.py (two lots of N = 30, pores m = 8,
 σθ = 500 MPa; grinding m = 16, σθ = 480 MPa; every origin identified, no survivors); the
@@ -9,8 +9,8 @@ flawmix.censored.censored_weibull_mle. Bootstrap replicates are drawn from each 
 null fit (grinding pooled, pores at its own per-lot fit). Three references are compared:
 χ² (2 df), Bartlett-corrected χ² (LR × df / mean LR*), and the bootstrap p-value
 (1 + #{LR* ≥ LR}) / (1 + B). Rates at 5 % with binomial SE sqrt(p(1 − p)/R).
-The batched LR matched lots.likelihood_ratio_tests (general joint path) to ~1e-13 on
-three seeded data sets (checked by hand, not yet a test).
+The statistic is flawmix.lot_calibration's (tests/test_lot_calibration.py checks it against
+the general joint fit).
 
 Run:  python studies/lots_labelled_bootstrap.py [--replicates 2000] [--bootstrap 99] [--seed 2026] [--power]
 """
@@ -26,18 +26,12 @@ from scipy import stats
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))   # this checkout's flawmix
 from flawmix.censored import censored_weibull_mle  # noqa: E402
+from flawmix.lot_calibration import separable_statistic  # noqa: E402
 
 N, TESTED = 30, 1
 MODULI = np.array([[8.0, 16.0], [8.0, 16.0]])
 SCALES = {"no change": np.array([[500.0, 480.0], [500.0, 480.0]]),
           "grinding +10 %": np.array([[500.0, 480.0], [500.0, 528.0]])}
-
-
-def loglik(y, w, log_m, log_s):
-    """Censored Weibull log-likelihood in ln σ (constant Jacobian dropped), summed over the last axis."""
-    m = np.exp(log_m)[..., None]
-    z = m * (y - log_s[..., None])
-    return (w * (np.log(m) + z) - np.exp(z)).sum(-1)
 
 
 def draw(rng, moduli, scales, shape):
@@ -47,14 +41,14 @@ def draw(rng, moduli, scales, shape):
 
 
 def lr_same(y, origin, j):
-    """LR of "population j the same in every lot" for y (..., L, N); NaN where a lot has no j failure."""
+    """LR of "population j the same in every lot" for y (..., L, N) (flawmix.lot_calibration's
+    closed forms); NaN where a lot has no j failure. Also the pooled fit (ln m, ln σθ) of j."""
+    lead, (L, n) = y.shape[:-2], y.shape[-2:]
     w = (origin == j).astype(float)
-    a, b, _ = censored_weibull_mle(y, w)
-    flat = y.shape[:-2] + (-1,)
-    yp, wp = y.reshape(flat), w.reshape(flat)
-    a0, b0, _ = censored_weibull_mle(yp, wp)
-    ok = (w.sum(-1) > 0).all(-1)
-    return np.where(ok, np.maximum(0.0, 2 * (loglik(y, w, a, b).sum(-1) - loglik(yp, wp, a0, b0))), np.nan), a0, b0
+    groups = [(y[..., l, :].reshape(-1, n), w[..., l, :].reshape(-1, n)) for l in range(L)]
+    statistic, _ = separable_statistic(groups, "same_population")
+    a0, b0, _ = censored_weibull_mle(y.reshape(lead + (-1,)), w.reshape(lead + (-1,)))
+    return statistic.reshape(lead), a0, b0
 
 
 def main() -> None:
