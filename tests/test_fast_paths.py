@@ -230,3 +230,35 @@ def test_labelled_calibration_equals_the_general_refits(seed, survive_at, n, mon
     np.testing.assert_allclose(closed.signed_roots, general.signed_roots, rtol=0, atol=1e-7)
     np.testing.assert_allclose(closed.theta, general.theta, rtol=0, atol=1e-6)     # ascent stops at |score| 1e-6
     np.testing.assert_allclose(closed.covariance, general.covariance, rtol=1e-5, atol=1e-9)
+
+
+@pytest.mark.parametrize("rare", [False, True])
+def test_big_data_subsample_start_reaches_the_maximum_of_the_em_start(rare, monkeypatch):
+    """Above 2 × SUBSAMPLE_START specimens Newton starts from a strided subsample's maximum
+    instead of the EM starts: the same maximum (free and common-modulus fits), also when one
+    population has only a few dozen failures among 10^5 specimens."""
+    rng = np.random.default_rng(11)
+    n = 110_000
+    pops = ((5.0, 500.0), (12.0, 450.0), (20.0, 650.0 if rare else 470.0))
+    draws = np.stack([s * rng.weibull(m, n) for m, s in pops], axis=1)
+    strength, origin = draws.min(axis=1), draws.argmin(axis=1)
+    censor = np.quantile(strength, 0.97)
+    failed = strength < censor
+    cand = (np.arange(3) == origin[:, None]) & failed[:, None]
+    hidden = failed & (rng.random(n) < 0.15)
+    if rare:   # ambiguous between the two common populations only: the rare one keeps all its failures
+        hidden &= origin < 2
+        cand[hidden, :2] = True
+    else:
+        cand[hidden] = True
+    data = lik.Data(np.log(np.minimum(strength, censor)) - 6.0, failed, cand)
+    assert not rare or 10 < (cand[:, 2] & failed).sum() < mle.SUBSAMPLE_RARE
+    assert data.y.size > 2 * mle.SUBSAMPLE_START
+    tie = mle.common_modulus_tie(3)
+    fast, fast_tied = mle._maximise(data)[0], mle._maximise(data, tie)[0]
+    monkeypatch.setattr(mle, "SUBSAMPLE_START", 10**9)   # the general path: EM starts on every row
+    general, general_tied = mle._maximise(data)[0], mle._maximise(data, tie)[0]
+    for a, b in ((fast, general), (fast_tied, general_tied)):
+        assert a.converged and b.converged
+        np.testing.assert_allclose(a.theta, b.theta, rtol=0, atol=1e-9)
+        assert a.loglik == pytest.approx(b.loglik, rel=1e-13)
