@@ -11,7 +11,6 @@ from pathlib import Path
 from typing import Any, Mapping
 
 import numpy as np
-from scipy.interpolate import CubicSpline
 
 from .errors import FlawmixError
 from .scaling import GEOMETRIES, effective_size, read_elements
@@ -53,6 +52,8 @@ class Geometry:
                         raise FlawmixError(f"geometry '{name}': {key} must be positive")
                     curves[k] = value
         elif kind == "elements":
+            from scipy.interpolate import CubicSpline   # on use: it imports scipy.optimize (~0.3 s)
+
             rule = dims.get("rule", "independent-action")
             for k, key in (("volume", "volume_table"), ("surface", "area_table")):
                 if key in dims:
@@ -65,6 +66,8 @@ class Geometry:
             if not curves:
                 raise FlawmixError(f"geometry '{name}': an element geometry needs volume_table and/or area_table")
         elif kind in GEOMETRIES:
+            from scipy.interpolate import CubicSpline
+
             try:
                 sizes = [effective_size(kind, float(np.exp(u)), unit=unit, **dims) for u in _GRID]
             except TypeError as exc:

@@ -10,9 +10,7 @@ from dataclasses import dataclass
 from typing import Callable
 
 import numpy as np
-from scipy import optimize as _sopt
-from scipy import special as _sspecial
-from scipy import stats as _sstats
+from scipy import special as _sspecial   # scipy.stats and scipy.optimize cost ~0.6 s to import
 
 Derivatives = Callable[[np.ndarray], tuple[float, np.ndarray, np.ndarray]]
 
@@ -211,7 +209,9 @@ def _one_side(profile, cut, center, direction, se, limits, problems) -> float:
         return direction * np.inf
     a, b = sorted(found)
     try:
-        return float(_sopt.brentq(lambda t: profile(t, cut), a, b, xtol=1e-9, rtol=1e-12))
+        from scipy.optimize import brentq
+
+        return float(brentq(lambda t: profile(t, cut), a, b, xtol=1e-9, rtol=1e-12))
     except (ValueError, RuntimeError):
         # The inner maximisation found different maxima on two calls at the same point
         # (several local maxima): no trustworthy root in this bracket.
@@ -229,7 +229,7 @@ def wald_interval(optimum: Optimum, index: int, confidence: float, tie: np.ndarr
         cov = J @ np.linalg.inv(-optimum.hessian) @ J.T
     except np.linalg.LinAlgError:   # no curvature: the data do not bound the parameter
         return -np.inf, np.inf
-    z = float(_sstats.norm.ppf(0.5 + confidence / 2))
+    z = float(_sspecial.ndtri(0.5 + confidence / 2))   # the normal quantile
     se = float(np.sqrt(max(cov[index, index], 0.0)))
     if not np.isfinite(se):
         return -np.inf, np.inf

@@ -14,7 +14,7 @@ from typing import Callable
 
 import numpy as np
 import pandas as pd
-from scipy import integrate, special
+from scipy import special
 
 from .errors import FlawmixError
 from .units import length_factor, length_unit
@@ -231,6 +231,8 @@ class RingOnRing:
             return g * 2 * math.pi * r
 
         inner = (2.0 if rule == "independent-action" else 1.0) * math.pi * a * a
+        from scipy import integrate   # on use: only this geometry integrates numerically
+
         ring, _ = integrate.quad(integrand, a, b, limit=200, epsabs=0, epsrel=1e-11)
         over, _ = integrate.quad(integrand, b, R, limit=200, epsabs=0, epsrel=1e-11) if R > b else (0.0, 0.0)
         area = inner + ring + over

@@ -50,6 +50,16 @@ def test_command_imports_only_what_it_needs(argv, absent):
     assert not _imported(argv) & absent
 
 
+def test_mle_fit_needs_no_scipy_stats_optimize_or_interpolate():
+    """Those three cost about 0.6 CPU s to import, more than the fit of a lab table itself; an
+    MLE fit (its intervals, origin checks and bottom line) needs scipy.special only."""
+    out = subprocess.run([sys.executable, "-c", _PROBE, json.dumps(["fit", str(DEMO), "--json"])], cwd=ROOT,
+                         capture_output=True, text=True, check=True, timeout=120)
+    loaded = {".".join(m.split(".")[:2]) for m in json.loads(out.stdout.strip().splitlines()[-1])}
+    assert "scipy.special" in loaded   # the probe sees scipy's modules at all
+    assert not loaded & {"scipy.stats", "scipy.optimize", "scipy.interpolate", "scipy.integrate"}
+
+
 def test_package_names_load_on_first_use():
     code = ("import sys, flawmix as fm; light = 'pandas' not in sys.modules; "
             f"r = fm.fit(fm.read_specimens({str(DEMO)!r})); "
