@@ -36,7 +36,8 @@ def fit(
 
     Args:
         specimens: a :class:`Specimens` (from :func:`read_specimens`), or anything
-            ``read_specimens`` accepts (path or DataFrame) together with its options.
+            ``read_specimens`` accepts (path, DataFrame, or a 1-D sequence of strengths)
+            together with its options.
         method: ``"mle"`` (competing-risk censored maximum likelihood) or ``"bayes"``
             (emcee ensemble sampler on the same likelihood; see :func:`flawmix.bayes.fit_bayes`
             for ``priors``, ``reference_prior``, ``seed``, ``target_ess``, ``max_steps``, ``progress``).

@@ -262,7 +262,8 @@ def read_specimens(
 
     Args:
         path_or_frame: a ``.csv`` (comma, semicolon with decimal commas, or tab; UTF-8 or
-            UTF-16 with byte-order mark) or ``.xlsx`` path, or a pandas DataFrame. Columns:
+            UTF-16 with byte-order mark) or ``.xlsx`` path, a pandas DataFrame, or a 1-D
+            sequence of strengths (every specimen failed, one population). Columns:
             ``strength`` (required; its header may carry the unit: ``Strength (MPa)``),
             ``specimen``, ``origin``, ``status`` (``failed``, ``survived`` or ``excluded``),
             ``geometry`` (optional); other columns are kept.

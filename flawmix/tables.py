@@ -8,6 +8,7 @@ from __future__ import annotations
 import csv
 import hashlib
 import io
+import os
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -58,12 +59,24 @@ class RawTable:
 
 
 def read_table(path_or_frame, sheet=None) -> RawTable:
-    """Read a .csv/.txt/.tsv file, an .xlsx workbook or a DataFrame into a :class:`RawTable`."""
+    """Read a .csv/.txt/.tsv file, an .xlsx workbook, a DataFrame or a 1-D sequence of strengths
+    into a :class:`RawTable`."""
     if isinstance(path_or_frame, pd.DataFrame):
         # cells keep their dtypes: a numeric strength column needs no round trip through text
         frame = path_or_frame
         return RawTable([str(c).strip() for c in frame.columns], frame.set_axis(range(frame.shape[1]), axis=1),
                         None, "dataframe", blank=np.zeros(len(frame), dtype=bool))
+    if isinstance(path_or_frame, pd.Series) or (not isinstance(path_or_frame, (str, bytes, os.PathLike))
+                                                 and np.ndim(path_or_frame) >= 1):
+        values = np.asarray(path_or_frame)
+        if values.ndim != 1:
+            raise FlawmixError(f"an array of shape {values.shape} was given; give the strengths as a "
+                               "one-dimensional sequence, or a table (file or DataFrame) with a strength column")
+        # strengths alone: every specimen a failure, of one population
+        return read_table(pd.DataFrame({"strength": values}), sheet)
+    if not isinstance(path_or_frame, (str, os.PathLike)):
+        raise FlawmixError(f"cannot read specimens from a {type(path_or_frame).__name__}; give a table file "
+                           "(.csv or .xlsx), a pandas DataFrame or a sequence of strengths")
     path = Path(path_or_frame)
     if path.is_dir():
         raise FlawmixError(f"{path}: is a folder; give the specimen table file (.csv or .xlsx)")

@@ -106,3 +106,25 @@ def test_shipped_demo_data_is_what_the_generator_makes():
     from pathlib import Path
     script = Path(__file__).resolve().parents[1] / "scripts" / "make_demo_data.py"
     assert subprocess.run([sys.executable, str(script), "--check"]).returncode == 0
+
+
+def test_a_sequence_of_strengths_is_one_complete_population():
+    """fm.fit(array) is the textbook case: the same fit as a table with only a strength column,
+    and its modulus is scipy's weibull_min.fit with floc=0 (an outside reference)."""
+    from scipy import stats
+
+    x = 400.0 * np.random.default_rng(3).weibull(9.0, 40)
+    a, b, c = fm.fit(x), fm.fit(list(x)), fm.fit(pd.DataFrame({"strength": x}))
+    assert a.moduli == pytest.approx(b.moduli, rel=1e-14)
+    assert a.moduli == pytest.approx(c.moduli, rel=1e-14)
+    assert a.populations[0].modulus_interval == pytest.approx(c.populations[0].modulus_interval, rel=1e-14)
+    m, _, s = stats.weibull_min.fit(x, floc=0)
+    assert a.moduli[0] == pytest.approx(m, rel=1e-4)
+    assert a.populations[0].characteristic_strength == pytest.approx(s, rel=1e-4)
+
+
+@pytest.mark.parametrize("bad, words", [(np.ones((3, 2)), "one-dimensional"), ({"strength": 1}, "a dict"),
+                                        (5.0, "a float")])
+def test_what_is_not_a_table_or_strengths_is_named(bad, words):
+    with pytest.raises(fm.FlawmixError, match=words):
+        fm.fit(bad)
