@@ -184,7 +184,9 @@ def fit_bayes(
             # drop the first fifth as further warm-up before judging
             kept = chain[steps // 5:]
             post = {nm: kept[:, :, i].T for i, nm in enumerate(names_params)}
-            diag = diagnostics.convergence(post)   # numpy; arviz's xarray path cost more than sampling
+            # numpy (arviz's xarray path cost more than sampling); tail ESS does not decide when
+            # to stop, so it is computed once, on the draws kept
+            diag = diagnostics.convergence(post, tail=False)
             bar.step(burn + steps, f"steps, R-hat max {diag['r_hat_max']:.4f} (target {R_HAT_TARGET}), "
                                    f"bulk ESS min {diag['ess_bulk_min']:.0f} (target {target_ess:.0f})")
             if diag["r_hat_max"] <= R_HAT_TARGET and diag["ess_bulk_min"] >= target_ess:
@@ -201,6 +203,8 @@ def fit_bayes(
                          block=asked[1], progress=progress, loo=loo, common_modulus=common_modulus,
                          moves=_moves.DEMove(), geometries=geometries, mle=mle)
     chain = sampler.get_chain()[steps // 5:]
+    if diag is not None:
+        diag["ess_tail_min"] = min(diagnostics.ess_tail(chain[:, :, i].T) for i in range(P))
     kept_steps = chain.shape[0]
     flat = chain.transpose(1, 0, 2).reshape(-1, P)           # walker-major: (walkers*steps, P)
     full = expand(flat)

@@ -98,11 +98,22 @@ def ess_tail(draws: np.ndarray) -> float:
     return min(_ess(_split((x <= low).astype(float))), _ess(_split((x <= high).astype(float))))
 
 
-def convergence(posterior: dict[str, np.ndarray]) -> dict[str, float]:
-    """Largest R-hat, smallest bulk and tail ESS over parameters shaped (chain, draw)."""
-    values = [np.asarray(v, dtype=float) for v in posterior.values()]
-    return {"r_hat_max": max(r_hat(v) for v in values), "ess_bulk_min": min(ess_bulk(v) for v in values),
-            "ess_tail_min": min(ess_tail(v) for v in values)}
+def convergence(posterior: dict[str, np.ndarray], tail: bool = True) -> dict[str, float]:
+    """Largest R-hat, smallest bulk ESS (and, with ``tail``, tail ESS) over parameters shaped
+    (chain, draw). The same values as :func:`r_hat`, :func:`ess_bulk` and :func:`ess_tail`;
+    the rank-normalised split draws that bulk R-hat and bulk ESS share are computed once."""
+    r_max, bulk_min, tail_min = -np.inf, np.inf, np.inf
+    for v in posterior.values():
+        x = np.asarray(v, dtype=float)
+        z = _z_scale(_split(x))
+        r_max = max(r_max, _rhat(z), _rhat(_z_scale(_split(np.abs(x - np.median(x))))))
+        bulk_min = min(bulk_min, _ess(z))
+        if tail:
+            tail_min = min(tail_min, ess_tail(x))
+    out = {"r_hat_max": float(r_max), "ess_bulk_min": float(bulk_min)}
+    if tail:
+        out["ess_tail_min"] = float(tail_min)
+    return out
 
 
 def _generalised_pareto_fit(exceed: np.ndarray) -> tuple[float, float]:

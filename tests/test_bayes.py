@@ -203,6 +203,20 @@ def test_own_diagnostics_equal_arviz(phi, repeat, shift):
     assert diagnostics.pareto_k(log_weights) == pytest.approx(float(az.psislw(log_weights)[1]), rel=1e-10)
 
 
+def test_convergence_summary_equals_the_single_diagnostics():
+    # the sampler's summary shares the rank-normalised draws between R-hat and bulk ESS
+    from flawmix import diagnostics
+
+    rng = np.random.default_rng(4)
+    post = {"a": _chains(rng, 16, 301, 0.6, 0.4), "b": _chains(rng, 16, 301, 0.95, 0.2) + 0.3}
+    post["b"][:4] += 0.5
+    got = diagnostics.convergence(post)
+    assert got["r_hat_max"] == max(diagnostics.r_hat(v) for v in post.values())
+    assert got["ess_bulk_min"] == min(diagnostics.ess_bulk(v) for v in post.values())
+    assert got["ess_tail_min"] == min(diagnostics.ess_tail(v) for v in post.values())
+    assert diagnostics.convergence(post, tail=False) == {k: got[k] for k in ("r_hat_max", "ess_bulk_min")}
+
+
 @pytest.mark.parametrize("draws, spread", [(250, 0.3), (375, 1.5), (125, 3.0)])
 def test_psis_loo_equals_arviz(draws, spread):
     # Reference: arviz.loo on the same pointwise log-likelihood (with the constant placeholder
