@@ -191,6 +191,8 @@ def fit_bayes(
                                    f"bulk ESS min {diag['ess_bulk_min']:.0f} (target {target_ess:.0f})")
             if diag["r_hat_max"] <= R_HAT_TARGET and diag["ess_bulk_min"] >= target_ess:
                 break
+            if independent is not None and np.mean(sampler.acceptance_fraction) < INDEPENDENCE_MIN_ACCEPTANCE:
+                break   # known at the first check already: redo with DE moves now, not after a full run
         block = min(max(block, steps // 2), 5000)
     bar.close(f"{burn + steps} steps")
     acceptance = float(np.mean(sampler.acceptance_fraction))
