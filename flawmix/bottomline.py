@@ -17,6 +17,7 @@ import numpy as np
 from . import formatting as fmt
 from . import support
 from .errors import FlawmixError
+from .evidence import ONE_POPULATION_ENOUGH
 
 DEFAULT_TARGET = 1e-3            # failure probability analysed when the study gives no load
 BOOTSTRAP_REPLICATES = 1000      # draws for intervals when a plain MLE has none (~0.2 s for N = 40)
@@ -107,6 +108,10 @@ def model_choice_text(result, comparison=None) -> str:
     (When the shared evidence scale lands, it plugs in here.)"""
     if comparison is not None:
         first = comparison.verdict.split(". ")[0].rstrip(".")
+        if comparison.verdict.startswith(ONE_POPULATION_ENOUGH):
+            # the fit shown still separates the flaw types: say so, or the line contradicts itself
+            return (f"Model comparison: {first[0].lower()}{first[1:]}. The fit here still separates the flaw "
+                    f"types ('{result.model}' populations); one pooled Weibull population is not shown to fit worse.")
         return f"Model: '{result.model}' populations. {first}."
     tests = [t for t in result.tests if t.name == "common-modulus"]
     if tests:

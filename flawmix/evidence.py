@@ -67,10 +67,13 @@ def verdict_sentence(p_value: float, against: str) -> str:
     return f"p = {p_value:.2g}: {words} against {against} ({verdict} at the {TEST_LEVEL * 100:g} % level)."
 
 
+ONE_POPULATION_ENOUGH = "One population is enough"   # the verdict's lead when the test does not reject
+
+
 def population_count_verdict(p_value: float, test: str) -> str:
     """The first sentence of a model-comparison verdict, from the p-value of the calibrated
     test of one pooled population: "One population is enough" exactly when that test does
     not reject at the 5 % level, "Several flaw populations" otherwise."""
     sentence = verdict_sentence(p_value, "one pooled population")
-    lead = "Several flaw populations" if rejects(p_value) else "One population is enough"
+    lead = "Several flaw populations" if rejects(p_value) else ONE_POPULATION_ENOUGH
     return f"{lead}: {sentence[:-1]}; test: {test}."

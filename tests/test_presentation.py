@@ -189,3 +189,19 @@ def test_readme_python_snippet_runs_on_the_demo_data():
     namespace: dict = {}
     exec(compile(code, "README.md", "exec"), namespace)
     assert namespace["mle"].n_specimens == 40
+
+
+def test_bottom_line_model_sentence_does_not_contradict_a_one_population_verdict():
+    # the fit shown has several populations while the comparison found one enough: the line
+    # must say both, not "Model: 'concurrent' populations. One population is enough"
+    from types import SimpleNamespace
+
+    from flawmix.bottomline import model_choice_text
+    from flawmix.evidence import population_count_verdict
+
+    result = SimpleNamespace(model="concurrent", tests=[], populations=[1, 2])
+    one = SimpleNamespace(verdict=population_count_verdict(0.6, "a test") + " Scores: ...")
+    several = SimpleNamespace(verdict=population_count_verdict(0.001, "a test") + " Scores: ...")
+    text = model_choice_text(result, one)
+    assert text.startswith("Model comparison: one population is enough") and "still separates" in text
+    assert model_choice_text(result, several).startswith("Model: 'concurrent' populations. Several flaw populations")
