@@ -25,7 +25,6 @@ Rules compared on the same campaigns (90 %):
 from __future__ import annotations
 
 import argparse
-import math
 import sys
 import time
 import warnings
