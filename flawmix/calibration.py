@@ -107,7 +107,8 @@ def _ascend(data: lik.Data, theta: np.ndarray, free: np.ndarray, steps: int, tol
 
 def _refits(data: lik.Data, truth: np.ndarray):
     """Free refits (R, 2k), signed roots of every parameter at the truth (R, 2k, unclipped)
-    and Hessians at the refits (R, 2k, 2k), by batched ascent on the joint likelihood."""
+    and Hessians at the refits (R, 2k, 2k), by batched ascent on the joint likelihood.
+    ``truth``: (2k,) for every campaign, or (R, 2k), one per campaign."""
     k = data.k
     start = np.broadcast_to(truth, (data.y.shape[0], 2 * k))
     # every refit starts from the truth of the bootstrap world, where its maximum lies near
@@ -118,7 +119,7 @@ def _refits(data: lik.Data, truth: np.ndarray):
         free[i] = False
         _, ll_fixed = _ascend(data, start, free, ASCENT_STEPS, 1e-6)
         statistic = np.maximum(2.0 * (ll_free - ll_fixed), 0.0)
-        roots[:, i] = np.sign(theta[:, i] - start[0, i]) * np.sqrt(statistic)
+        roots[:, i] = np.sign(theta[:, i] - start[:, i]) * np.sqrt(statistic)
     _, _, hessian = lik.concurrent_derivatives_batch(data, theta)
     return theta, roots, hessian
 

@@ -40,22 +40,16 @@ from interval_coverage import CELLS, censor_stress, draw_campaign  # noqa: E402
 
 import flawmix as fm  # noqa: E402
 from flawmix import likelihood as lik  # noqa: E402
-from flawmix.calibration import ASCENT_STEPS, SIGNED_ROOT_CLIP, _ascend  # noqa: E402
+from flawmix.calibration import SIGNED_ROOT_CLIP, _refits  # noqa: E402
 from flawmix.simulate import Design, simulate  # noqa: E402
 
 Z = float(stats.norm.ppf(0.95))
 
 
 def roots_at(data: lik.Data, truth: np.ndarray):
-    """Refits (R, 2k) and the signed root of every parameter at each row's own truth (R, 2k)."""
-    k = data.k
-    theta, ll_free = _ascend(data, truth, np.ones(2 * k, bool), ASCENT_STEPS, 1e-6)
-    roots = np.empty_like(theta)
-    for i in range(2 * k):
-        free = np.ones(2 * k, bool)
-        free[i] = False
-        _, ll_fixed = _ascend(data, truth, free, ASCENT_STEPS, 1e-6)
-        roots[:, i] = np.sign(theta[:, i] - truth[:, i]) * np.sqrt(np.maximum(2.0 * (ll_free - ll_fixed), 0.0))
+    """Refits (R, 2k) and the signed root of every parameter at each row's own truth (R, 2k),
+    clipped as the default's are."""
+    theta, roots, _ = _refits(data, truth)
     return theta, np.clip(np.where(np.isfinite(roots), roots, np.nan), -SIGNED_ROOT_CLIP, SIGNED_ROOT_CLIP)
 
 
