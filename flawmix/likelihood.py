@@ -396,8 +396,9 @@ def partial_pointwise(data: Data, log_modulus, log_scale, logit_fraction, partia
     log_p = -np.logaddexp(0.0, -t)        # ln p
     log_q = -np.logaddexp(0.0, t)         # ln (1 − p)
     H_a = H[..., a]
-    with np.errstate(invalid="ignore"):   # inf − inf where H_a overflows: nan, caught as non-finite
-        H_rest = _last_axis(np.add, H)[..., 0] - H_a
+    # summed over the others, never as the total less H_A: a large H_A (a steep population far
+    # above its scale) would leave only its rounding error, which the fit could climb on
+    H_rest = _last_axis(np.add, np.where(np.arange(H.shape[-1]) == a, 0.0, H))[..., 0]
     mix = np.logaddexp(log_q, log_p - H_a)           # ln[(1 − p) + p S_A]
     terms = logh + (mix - H_rest)[..., None]
     terms[..., a] = log_p + logh[..., a] - H_a - H_rest

@@ -118,3 +118,23 @@ def test_mixture_collapse_is_reported_in_plain_words():
         r = fm.fit(pd.DataFrame({"strength": s, "origin": origin}), model="exclusive", intervals="none")
     assert r.population("b").at_bound
     assert any("mixture likelihood is unbounded" in w and "not meaningful" in w for w in r.warnings)
+
+
+def test_partial_likelihood_stays_exact_when_the_partial_population_is_far_past_its_scale():
+    # The survival of the others used to be the total cumulative hazard less H_A: with H_A of
+    # 1e20 only its rounding error was left (tens of log units a specimen), which fits climbed
+    # on. Reference: scipy.stats' Weibull log-density and log-survival, population by population.
+    s = np.array([300.0, 320.0, 350.0, 380.0, 400.0])
+    failed = np.array([True, True, True, True, False])
+    cand = np.array([[False, True], [False, True], [True, True], [False, True], [False, False]])
+    data = lik.Data(np.log(s), failed, cand)
+    m_a, s_a, m_b, s_b, p = 200.0, 250.0, 8.0, 420.0, 0.3      # (300/250)^200 ≈ 7e15, H_A ≥ 7e15
+    theta = np.array([np.log(m_a), np.log(m_b), np.log(s_a), np.log(s_b), np.log(p / (1 - p))])
+    got = lik.Model("partial", 2, 0).pointwise(data, theta)
+    logS_a, logS_b = stats.weibull_min.logsf(s, m_a, scale=s_a), stats.weibull_min.logsf(s, m_b, scale=s_b)
+    logf_a, logf_b = stats.weibull_min.logpdf(s, m_a, scale=s_a), stats.weibull_min.logpdf(s, m_b, scale=s_b)
+    mix = np.logaddexp(np.log(1 - p), np.log(p) + logS_a)                  # ln[(1 − p) + p S_A]
+    from_b = logf_b + mix                                                 # f_B [(1 − p) + p S_A]
+    from_a = np.log(p) + logf_a + logS_b                                  # p f_A S_B
+    expected = np.where(~failed, logS_b + mix, np.where(cand[:, 0], np.logaddexp(from_a, from_b), from_b))
+    np.testing.assert_allclose(got, expected, rtol=1e-12, atol=1e-9)
