@@ -406,6 +406,101 @@ def partial_pointwise(data: Data, log_modulus, log_scale, logit_fraction, partia
     return np.where(data.failed, fail, mix - H_rest)
 
 
+def partial_derivatives(data: Data, theta: np.ndarray, partial_index: int):
+    """Log-likelihood, gradient and Hessian of the partial model (one data set, no leading
+    dims) at theta = [u_1..u_k, v_1..v_k, logit p]: the exact derivatives of
+    :func:`partial_pointwise` (tests check them against central differences).
+
+    Each specimen's likelihood is −H_rest + ln Σ_s exp φ_s over its terms φ_s: a failure
+    from j ≠ A gives ln h_j + ln(1 − p) and ln h_j + ln p − H_A, one from A gives
+    ln h_A + ln p − H_A, a survivor ln(1 − p) and ln p − H_A. With w_s the terms' softmax
+    weights, ∇ℓ = −∇H_rest + Σ w_s ∇φ_s and ∇²ℓ = −∇²H_rest + Σ w_s ∇²φ_s
+    + Σ w_s ∇φ_s ∇φ_sᵀ − (Σ w_s ∇φ_s)(Σ w_s ∇φ_s)ᵀ.
+    """
+    # far out (a steep population well above its scale) H overflows: inf/nan, caught by the caller
+    with np.errstate(over="ignore", invalid="ignore"):
+        return _partial_derivatives(data, np.asarray(theta, dtype=float), partial_index)
+
+
+def _partial_derivatives(data: Data, theta: np.ndarray, partial_index: int):
+    k, a = data.k, partial_index
+    u, v, t = theta[:k], theta[k:2 * k], float(theta[2 * k])
+    m = np.exp(u)
+    y, F, C = data.y, data.failed, data.candidates
+    n, P = y.size, 2 * k + 1
+    z = m * (y[:, None] - v)                       # (N, k)
+    H = np.exp(z)
+    g = u - y[:, None] + z                          # ln h_j
+    log_p, log_q = -np.logaddexp(0.0, -t), -np.logaddexp(0.0, t)
+    p, q = np.exp(log_p), np.exp(log_q)
+    # term slots: 2j (ln h_j + ln q), 2j + 1 (ln h_j + ln p − H_A), 2k (ln q), 2k + 1 (ln p − H_A)
+    S = 2 * k + 2
+    phi = np.full((n, S), -np.inf)
+    fail_j = F[:, None] & C
+    other = np.arange(k) != a
+    phi[:, 0:2 * k:2] = np.where(fail_j & other, g + log_q, -np.inf)
+    phi[:, 1:2 * k:2] = np.where(fail_j, g + log_p - H[:, [a]], -np.inf)
+    phi[:, 2 * k] = np.where(F, -np.inf, log_q)
+    phi[:, 2 * k + 1] = np.where(F, -np.inf, log_p - H[:, a])
+    top = phi.max(axis=1, keepdims=True)
+    e = np.exp(phi - top)
+    total = e.sum(axis=1, keepdims=True)
+    w = e / total
+    ll = float(np.sum(top[:, 0] + np.log(total[:, 0])) - np.sum(H[:, other]))
+    # gradients of the pieces, in the full parameter vector
+    iu, iv, it = np.arange(k), k + np.arange(k), 2 * k
+    grad_phi = np.zeros((n, S, P))
+    for j in range(k):
+        for s in (2 * j, 2 * j + 1):   # ln h_j: (1 + z_j, −m_j)
+            grad_phi[:, s, iu[j]] += 1.0 + z[:, j]
+            grad_phi[:, s, iv[j]] -= m[j]
+    for s in list(range(1, 2 * k, 2)) + [2 * k + 1]:   # ln p − H_A
+        grad_phi[:, s, it] += q
+        grad_phi[:, s, iu[a]] -= H[:, a] * z[:, a]
+        grad_phi[:, s, iv[a]] += m[a] * H[:, a]
+    for s in list(range(0, 2 * k, 2)) + [2 * k]:       # ln q
+        grad_phi[:, s, it] -= p
+    grad_phi = np.where(np.isfinite(phi)[..., None], grad_phi, 0.0)
+    mean = np.einsum("ns,nsp->np", w, grad_phi)
+    grad = mean.sum(axis=0)
+    hess = np.einsum("ns,nsp,nsq->pq", w, grad_phi, grad_phi) - mean.T @ mean
+    # Σ w_s ∇²φ_s: ln h_j in the terms of j, −H_A in those with ln p, and ln p / ln q (−pq)
+    w_h = w[:, 0:2 * k:2] + w[:, 1:2 * k:2]         # (N, k) weight of the terms with ln h_j
+    hess[iu, iu] += (w_h * z).sum(axis=0)
+    hess[iu, iv] -= m * w_h.sum(axis=0)
+    hess[iv, iu] -= m * w_h.sum(axis=0)
+    w_a = w[:, 1:2 * k:2].sum(axis=1) + w[:, 2 * k + 1]
+    za, Ha = z[:, a], H[:, a]
+    hess[iu[a], iu[a]] -= np.sum(w_a * Ha * za * (1 + za))
+    cross = np.sum(w_a * m[a] * Ha * (1 + za))
+    hess[iu[a], iv[a]] += cross
+    hess[iv[a], iu[a]] += cross
+    hess[iv[a], iv[a]] -= np.sum(w_a * m[a] ** 2 * Ha)
+    hess[it, it] -= p * q * n   # ln p and ln q both have −pq, and each specimen's weights sum to one
+    # −H_rest over every specimen
+    for j in np.flatnonzero(other):
+        Hj, zj = H[:, j], z[:, j]
+        grad[iu[j]] -= np.sum(Hj * zj)
+        grad[iv[j]] += m[j] * np.sum(Hj)
+        hess[iu[j], iu[j]] -= np.sum(Hj * zj * (1 + zj))
+        c = m[j] * np.sum(Hj * (1 + zj))
+        hess[iu[j], iv[j]] += c
+        hess[iv[j], iu[j]] += c
+        hess[iv[j], iv[j]] -= m[j] ** 2 * np.sum(Hj)
+    return ll, grad, hess
+
+
+def derivatives(model: Model, data: Data, theta: np.ndarray):
+    """Log-likelihood, gradient and Hessian of ``model`` at theta (one data set): exact for the
+    concurrent model without size offsets and for the partial model, central differences
+    (:func:`numerical_derivatives`) for the others."""
+    if model.name == "concurrent" and model.size_offsets is None:
+        return concurrent_derivatives(data, theta)
+    if model.name == "partial":
+        return partial_derivatives(data, theta, model.partial_index)
+    return numerical_derivatives(model, data, theta)
+
+
 def numerical_derivatives(model: Model, data: Data, theta: np.ndarray, step: float = 1e-4):
     """Log-likelihood, gradient and Hessian by central differences, all parameter sets in
     one batched call (the models other than ``concurrent`` have no hand-written derivatives)."""

@@ -219,7 +219,8 @@ def _pivotal_bounds(n, m_hat, log_scale, confidence):
 
 def _fit_other_model(data: lik.Data, model_name: str, concurrent_theta: np.ndarray,
                      logit_starts=(2.0, 0.0, -1.0)):
-    """Exclusive or partial model: Newton on numerical derivatives from several starts."""
+    """Exclusive or partial model: Newton from several starts (exact derivatives for the partial
+    model, central differences for the exclusive one)."""
     k = data.k
     F = data.failed
     n_cand = data.candidates.sum(axis=1)
@@ -252,7 +253,7 @@ def _fit_other_model(data: lik.Data, model_name: str, concurrent_theta: np.ndarr
     best = None
     for model, starts in candidates:
         lower, upper = model.bounds()
-        deriv = (lambda t, model=model: lik.numerical_derivatives(model, data, t))
+        deriv = (lambda t, model=model: lik.derivatives(model, data, t))
         for theta0 in starts:
             theta0 = np.clip(theta0, lower, upper)
             opt = newton_maximise(deriv, theta0, lower=lower, upper=upper, score_tol=1e-6)

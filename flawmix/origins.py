@@ -116,9 +116,7 @@ def _withheld(data: lik.Data, i: int) -> lik.Data:
 
 
 def _derivatives(spec: lik.Model, data: lik.Data):
-    if spec.name == "concurrent" and spec.size_offsets is None:
-        return lambda t: lik.concurrent_derivatives(data, t)
-    return lambda t: lik.numerical_derivatives(spec, data, t)
+    return lambda t: lik.derivatives(spec, data, t)
 
 
 def refit_without_label(fit: _Fitted, i: int) -> np.ndarray:

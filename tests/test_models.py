@@ -120,6 +120,31 @@ def test_mixture_collapse_is_reported_in_plain_words():
     assert any("mixture likelihood is unbounded" in w and "not meaningful" in w for w in r.warnings)
 
 
+@pytest.mark.parametrize("k", [2, 3, 4])
+def test_partial_derivatives_equal_central_differences(k):
+    # exact gradient and Hessian of the partial likelihood (survivors, unidentified origins,
+    # each population in turn the partial one) against the five-point stencil of
+    # numerical_derivatives, and the Hessian against differences of the exact gradient
+    rng = np.random.default_rng(k)
+    moduli, scales = np.array([5.0, 10.0, 15.0, 8.0][:k]), np.array([1.0, 1.05, 0.95, 1.1][:k])
+    design = Design(np.where(rng.random(40) < 0.3, 0.85, np.inf), 0.3)   # some bars stop unbroken at 0.85
+    sims = simulate(lik.Model("partial", k, 0), moduli, scales, [0.6] + [1.0] * (k - 1), design, 1, rng)
+    data = lik.Data(sims.y[0], sims.failed[0], sims.candidates[0])
+    assert (~data.failed).any() and (data.candidates[data.failed].sum(axis=1) > 1).any()
+    for a in range(k):
+        theta = np.concatenate([np.log(moduli) + 0.1 * rng.standard_normal(k), 0.05 * rng.standard_normal(k),
+                                [rng.normal(0.5, 1.0)]])
+        ll, g, H = lik.partial_derivatives(data, theta, a)
+        ln, gn, Hn = lik.numerical_derivatives(lik.Model("partial", k, a), data, theta)
+        assert ll == pytest.approx(ln, rel=1e-13)
+        np.testing.assert_allclose(g, gn, rtol=0, atol=1e-9 * np.abs(gn).max())
+        np.testing.assert_allclose(H, Hn, rtol=0, atol=1e-6 * np.abs(Hn).max())
+        step = 1e-6 * np.eye(theta.size)
+        Hg = np.array([(lik.partial_derivatives(data, theta + e, a)[1] - lik.partial_derivatives(data, theta - e, a)[1])
+                       / 2e-6 for e in step])
+        np.testing.assert_allclose(H, Hg, rtol=0, atol=1e-8 * np.abs(H).max())
+
+
 def test_partial_likelihood_stays_exact_when_the_partial_population_is_far_past_its_scale():
     # The survival of the others used to be the total cumulative hazard less H_A: with H_A of
     # 1e20 only its rounding error was left (tens of log units a specimen), which fits climbed
