@@ -83,9 +83,12 @@ def _ess(x: np.ndarray) -> float:
 def r_hat(draws: np.ndarray) -> float:
     """Rank-normalised split R-hat of one parameter's (chains, draws): max of bulk and tail."""
     x = np.asarray(draws, dtype=float)
-    bulk = _rhat(_z_scale(_split(x)))
-    tail = _rhat(_z_scale(_split(np.abs(x - np.median(x)))))
-    return max(bulk, tail)
+    return _r_hat(x, _z_scale(_split(x)))
+
+
+def _r_hat(x: np.ndarray, z: np.ndarray) -> float:
+    """R-hat of draws x given their rank-normalised split draws z (shared with bulk ESS)."""
+    return max(_rhat(z), _rhat(_z_scale(_split(np.abs(x - np.median(x))))))
 
 
 def ess_bulk(draws: np.ndarray) -> float:
@@ -106,7 +109,7 @@ def convergence(posterior: dict[str, np.ndarray], tail: bool = True) -> dict[str
     for v in posterior.values():
         x = np.asarray(v, dtype=float)
         z = _z_scale(_split(x))
-        r_max = max(r_max, _rhat(z), _rhat(_z_scale(_split(np.abs(x - np.median(x))))))
+        r_max = max(r_max, _r_hat(x, z))
         bulk_min = min(bulk_min, _ess(z))
         if tail:
             tail_min = min(tail_min, ess_tail(x))

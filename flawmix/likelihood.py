@@ -469,25 +469,27 @@ def _partial_derivatives(data: Data, theta: np.ndarray, partial_index: int):
     hess[iu, iu] += (w_h * z).sum(axis=0)
     hess[iu, iv] -= m * w_h.sum(axis=0)
     hess[iv, iu] -= m * w_h.sum(axis=0)
-    w_a = w[:, 1:2 * k:2].sum(axis=1) + w[:, 2 * k + 1]
-    za, Ha = z[:, a], H[:, a]
-    hess[iu[a], iu[a]] -= np.sum(w_a * Ha * za * (1 + za))
-    cross = np.sum(w_a * m[a] * Ha * (1 + za))
-    hess[iu[a], iv[a]] += cross
-    hess[iv[a], iu[a]] += cross
-    hess[iv[a], iv[a]] -= np.sum(w_a * m[a] ** 2 * Ha)
+    def minus_hazard(j, weight):
+        """Σ weight·∇²(−H_j) in (u_j, v_j), added to the Hessian."""
+        uu, uv, vv = _hazard_hessian(H[:, j], z[:, j], m[j], weight)
+        hess[iu[j], iu[j]] -= uu
+        hess[iu[j], iv[j]] -= uv
+        hess[iv[j], iu[j]] -= uv
+        hess[iv[j], iv[j]] -= vv
+
+    minus_hazard(a, w[:, 1:2 * k:2].sum(axis=1) + w[:, 2 * k + 1])   # −H_A in the terms with ln p
     hess[it, it] -= p * q * n   # ln p and ln q both have −pq, and each specimen's weights sum to one
-    # −H_rest over every specimen
-    for j in np.flatnonzero(other):
-        Hj, zj = H[:, j], z[:, j]
-        grad[iu[j]] -= np.sum(Hj * zj)
-        grad[iv[j]] += m[j] * np.sum(Hj)
-        hess[iu[j], iu[j]] -= np.sum(Hj * zj * (1 + zj))
-        c = m[j] * np.sum(Hj * (1 + zj))
-        hess[iu[j], iv[j]] += c
-        hess[iv[j], iu[j]] += c
-        hess[iv[j], iv[j]] -= m[j] ** 2 * np.sum(Hj)
+    for j in np.flatnonzero(other):   # −H_rest over every specimen
+        grad[iu[j]] -= np.sum(H[:, j] * z[:, j])
+        grad[iv[j]] += m[j] * np.sum(H[:, j])
+        minus_hazard(j, 1.0)
     return ll, grad, hess
+
+
+def _hazard_hessian(H: np.ndarray, z: np.ndarray, m: float, weight):
+    """Σ weight·∇²H over specimens for H = exp(z), z = m (y − v), in (u = ln m, v):
+    (∂²/∂u², ∂²/∂u∂v, ∂²/∂v²) = (Σ w H z (1 + z), −m Σ w H (1 + z), m² Σ w H)."""
+    return (np.sum(weight * H * z * (1 + z)), -m * np.sum(weight * H * (1 + z)), m**2 * np.sum(weight * H))
 
 
 def derivatives(model: Model, data: Data, theta: np.ndarray):
@@ -503,7 +505,7 @@ def derivatives(model: Model, data: Data, theta: np.ndarray):
 
 def numerical_derivatives(model: Model, data: Data, theta: np.ndarray, step: float = 1e-4):
     """Log-likelihood, gradient and Hessian by central differences, all parameter sets in
-    one batched call (the models other than ``concurrent`` have no hand-written derivatives)."""
+    one batched call (for the models without hand-written derivatives: see :func:`derivatives`)."""
     theta = np.asarray(theta, dtype=float)
     P = theta.size
     eye = np.eye(P) * step
