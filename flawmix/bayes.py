@@ -40,17 +40,17 @@ INDEPENDENCE_BURN = 100           # steps of burn-in when walkers start from imp
 INDEPENDENCE_MIN_ACCEPTANCE = 0.2  # below this the run is redone with DE moves alone
 
 
-def _independence_setup(theta_mle, hessian, log_prob, rng, walkers):
-    """(moves, starting ensemble) for an independence proposal from the mode, mixed with a
-    few DE moves; None when the pilot's importance weights say the proposal is unusable."""
+def _independence_setup(theta_mle, hessian, log_prob, rng, walkers, modulus_index, scale_index):
+    """(moves, starting ensemble) for an independence proposal fitted to the posterior, mixed
+    with a few DE moves; None when the pilot's importance weights say the proposal is unusable."""
     import emcee
 
     from . import proposal as _proposal
 
-    t = _proposal.from_mode(theta_mle, hessian)
-    if t is None:
+    found = _proposal.fitted(theta_mle, hessian, modulus_index, scale_index, log_prob, rng)
+    if found is None:
         return None
-    draws, log_weights, k = _proposal.pilot(t, log_prob, rng)
+    t, draws, log_weights, k = found
     if not k <= _proposal.PARETO_K_LIMIT:
         return None
     moves = [(_proposal.independence_move(t), 0.8), (emcee.moves.DEMove(), 0.2)]
@@ -156,7 +156,9 @@ def fit_bayes(
     start = _start_ball(rng, theta_mle, hess, n_walkers, lo_s, hi_s)
     independent = None
     if moves is None:
-        independent = _independence_setup(theta_mle, hess, log_prob, rng, n_walkers)
+        modulus_index = np.zeros(k, dtype=int) if common_modulus else np.arange(k)
+        scale_index = np.arange(1, k + 1) if common_modulus else np.arange(k, 2 * k)
+        independent = _independence_setup(theta_mle, hess, log_prob, rng, n_walkers, modulus_index, scale_index)
     first_check = 1000
     asked = (burn, block)
     if independent is not None:   # a proposal the pilot trusts: start spread like the posterior

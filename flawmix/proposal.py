@@ -1,8 +1,12 @@
-"""An independence proposal for the sampler: a multivariate t around the posterior mode.
+"""An independence proposal for the sampler: a multivariate t fitted to the posterior.
 
-Near the mode these posteriors are close to normal, so a fixed heavy-tailed proposal from the
-mode and the inverse observed information is accepted most of the time, and every walker's
-proposal goes through the likelihood in one batched call. A pilot of importance draws decides
+A population with few failures among many censored specimens has a curved (ln m, ln σθ)
+posterior: what the data fix is its cumulative hazard near the stresses tested, not its scale.
+So the t lives in *hazard coordinates*: each population's ln σθ is replaced by its log
+cumulative hazard η = m (c − ln σθ) at the stress e^c where, at the mode, η is uncorrelated with
+ln m. There the posterior is close to normal. The t starts from the mode and the inverse
+observed information, then takes the mean and covariance of a pilot of importance draws (twice);
+every walker's proposal goes through the likelihood in one batched call. The pilot decides
 whether to trust it: a Pareto k of the weights above ``PARETO_K_LIMIT`` (the tails of the
 proposal are too light for the posterior) leaves the sampler on differential-evolution moves.
 """
@@ -19,6 +23,7 @@ DEGREES_OF_FREEDOM = 5.0
 SCALE_INFLATION = 1.2       # proposal spread against the normal approximation
 PARETO_K_LIMIT = 0.5        # importance weights with k <= 0.5 have finite variance (PSIS practice)
 PILOT_DRAWS = 2000
+ADAPT_ROUNDS = 2            # refits of the t to its own pilot's weighted draws
 
 
 class MultivariateT:
@@ -45,18 +50,107 @@ class MultivariateT:
         return self._norm - 0.5 * (self.df + P) * np.log1p((white ** 2).sum(axis=1) / self.df)
 
 
-def from_mode(mode: np.ndarray, hessian: np.ndarray) -> MultivariateT | None:
-    """The proposal around ``mode`` with scale SCALE_INFLATION² (−H)⁻¹, or None without a
-    negative definite Hessian (no normal approximation to build on)."""
+class HazardT:
+    """A multivariate t in hazard coordinates, with its density in the sampler's parameters.
+
+    Parameters θ (P,) hold log moduli at ``modulus_index`` and log scales at ``scale_index``
+    (one modulus per scale; a common modulus repeats its index). Coordinates z equal θ except
+    z_s = exp(θ_m) (c − θ_s) for each scale s with its modulus m; |dz/dθ| = Π exp(θ_m), so
+    ln q_θ(θ) = ln q_z(z(θ)) + Σ θ_m.
+    """
+
+    def __init__(self, t: MultivariateT, modulus_index, scale_index, pivot):
+        self.t = t
+        self.modulus_index = np.asarray(modulus_index, dtype=int)
+        self.scale_index = np.asarray(scale_index, dtype=int)
+        self.pivot = np.asarray(pivot, dtype=float)
+
+    def to_hazard(self, theta: np.ndarray) -> np.ndarray:
+        z = np.array(theta, dtype=float, copy=True)
+        z[..., self.scale_index] = np.exp(z[..., self.modulus_index]) * (self.pivot - z[..., self.scale_index])
+        return z
+
+    def to_theta(self, z: np.ndarray) -> np.ndarray:
+        theta = np.array(z, dtype=float, copy=True)
+        theta[..., self.scale_index] = self.pivot - theta[..., self.scale_index] * np.exp(-theta[..., self.modulus_index])
+        return theta
+
+    def sample(self, random, count: int) -> np.ndarray:
+        """(count, P) draws of θ; ``random`` is a numpy RandomState or Generator."""
+        return self.to_theta(self.t.sample(random, count))
+
+    def logpdf(self, theta: np.ndarray) -> np.ndarray:
+        theta = np.asarray(theta, dtype=float)
+        return self.t.logpdf(self.to_hazard(theta)) + theta[..., self.modulus_index].sum(axis=-1)
+
+    def refit(self, theta: np.ndarray, log_weights: np.ndarray) -> "HazardT | None":
+        """The same coordinates, centre and scale from weighted draws (None if degenerate)."""
+        w = np.exp(log_weights - np.max(log_weights))
+        w = np.where(np.isfinite(w), w, 0.0)
+        w = w / w.sum()
+        z = self.to_hazard(theta)
+        mean = w @ z
+        spread = z - mean
+        cov = (spread * w[:, None]).T @ spread
+        try:
+            return HazardT(MultivariateT(mean, SCALE_INFLATION ** 2 * 0.5 * (cov + cov.T)),
+                           self.modulus_index, self.scale_index, self.pivot)
+        except np.linalg.LinAlgError:
+            return None
+
+
+def from_mode(mode: np.ndarray, hessian: np.ndarray, modulus_index, scale_index) -> HazardT | None:
+    """The proposal around ``mode``: in hazard coordinates, with scale SCALE_INFLATION² times
+    the inverse observed information carried there by the Jacobian; None without a negative
+    definite Hessian (no normal approximation to build on)."""
+    mode = np.asarray(mode, dtype=float)
+    mi, si = np.asarray(modulus_index, dtype=int), np.asarray(scale_index, dtype=int)
     try:
         cov = np.linalg.inv(-np.asarray(hessian, dtype=float))
         cov = 0.5 * (cov + cov.T)
-        return MultivariateT(mode, SCALE_INFLATION ** 2 * cov)
+        pivot = mode[si] + cov[mi, si] / cov[mi, mi]      # Cov(ln m, η) = 0 at the mode
+        jacobian = np.eye(mode.size)
+        jacobian[si, mi] = np.exp(mode[mi]) * (pivot - mode[si])
+        jacobian[si, si] = -np.exp(mode[mi])
+        shape = HazardT(None, mi, si, pivot)
+        shape.t = MultivariateT(shape.to_hazard(mode), SCALE_INFLATION ** 2 * (jacobian @ cov @ jacobian.T))
+        return shape
     except np.linalg.LinAlgError:
         return None
 
 
-def independence_move(proposal: MultivariateT):
+def fitted(mode, hessian, modulus_index, scale_index, log_prob, rng):
+    """(proposal, pilot draws, log weights, Pareto k): the t from the mode refitted
+    ADAPT_ROUNDS times to its pilot; of all rounds, the one whose pilot has the largest
+    importance ESS. None without a usable start."""
+    proposal = from_mode(mode, hessian, modulus_index, scale_index)
+    if proposal is None:
+        return None
+    best, best_ess = None, -1.0
+    for round_ in range(ADAPT_ROUNDS + 1):
+        draws, log_weights, k = pilot(proposal, log_prob, rng)
+        ess = importance_ess(log_weights)
+        if ess > best_ess:
+            best, best_ess = (proposal, draws, log_weights, k), ess
+        if round_ == ADAPT_ROUNDS or not np.isfinite(k):
+            break
+        proposal = proposal.refit(draws, log_weights)
+        if proposal is None:
+            break
+    return best
+
+
+def importance_ess(log_weights: np.ndarray) -> float:
+    """Kish's effective sample size of importance weights, (Σw)² / Σw² (0 when none is finite)."""
+    lw = np.asarray(log_weights, dtype=float)
+    lw = lw[np.isfinite(lw)]
+    if lw.size == 0:
+        return 0.0
+    w = np.exp(lw - lw.max())
+    return float(w.sum() ** 2 / (w ** 2).sum())
+
+
+def independence_move(proposal):
     """An emcee Metropolis–Hastings move drawing every walker's proposal from ``proposal``;
     the log-ratio ln q(x) − ln q(x′) makes it an independence sampler."""
     from emcee.moves import MHMove
@@ -67,7 +161,7 @@ def independence_move(proposal: MultivariateT):
     return MHMove(propose)
 
 
-def pilot(proposal: MultivariateT, log_prob, rng, draws: int = PILOT_DRAWS):
+def pilot(proposal, log_prob, rng, draws: int = PILOT_DRAWS):
     """Importance draws from the proposal: (draws (S, P), log weights (S,), Pareto k)."""
     x = proposal.sample(rng, draws)
     log_weights = log_prob(x) - proposal.logpdf(x)
