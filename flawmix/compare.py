@@ -78,7 +78,7 @@ def _bootstrap_partial_vs_concurrent(specimens: Specimens, concurrent: FitResult
 
     partial with fraction 1 is concurrent: the null sits on the boundary, so Wilks' χ² does
     not hold (DOMAIN.md section 2); simulate the statistic instead."""
-    from .mle import _fit_other_model, _maximise
+    from .mle import _maximise
 
     k = len(specimens.populations)
     design = Design.like(specimens)
@@ -86,22 +86,47 @@ def _bootstrap_partial_vs_concurrent(specimens: Specimens, concurrent: FitResult
     centre = float(np.mean(np.log(specimens.strength)))
     sims = simulate(lik.Model("concurrent", k), concurrent.moduli, concurrent.characteristic_strengths / np.exp(centre),
                     None, design, replicates, rng)
-    exceed = 0
-    used = 0
-    bar = _progress.task("boundary test (concurrent vs partial), replicates", replicates)
-    for r in range(replicates):
-        bar.step(r + 1)
-        data = replicate(sims, r)
-        if np.any(data.candidates[data.failed].sum(axis=0) == 0):
-            continue   # a population without failures: no fit, as with real data
-        conc, *_ = _maximise(data)
-        # under the null the fraction is 1: one start near that boundary is enough
-        part = _fit_other_model(data, "partial", conc.theta, logit_starts=(3.0,))[0]
-        used += 1
-        if 2 * (part.loglik - conc.loglik) >= observed - 1e-9:
-            exceed += 1
+    # a population without failures: no fit, as with real data
+    usable = np.flatnonzero(np.all((sims.candidates & sims.failed[..., None]).sum(axis=1) > 0, axis=1))
+    bar = _progress.task("boundary test (concurrent vs partial), replicates", usable.size + k)
+    concurrent_theta, concurrent_ll = [], []
+    for i, r in enumerate(usable):
+        bar.step(i + 1)
+        opt, *_ = _maximise(replicate(sims, r))
+        concurrent_theta.append(opt.theta)
+        concurrent_ll.append(opt.loglik)
+    data = lik.Data(sims.y[usable], sims.failed[usable], sims.candidates[usable])
+    partial_ll = partial_fits(data, np.array(concurrent_theta).reshape(usable.size, 2 * k),
+                              progress=lambda a: bar.step(usable.size + a + 1))
     bar.close()
-    return (1 + exceed) / (1 + used), used
+    statistic = 2 * (partial_ll - np.array(concurrent_ll))
+    exceed = int(np.sum(statistic >= observed - 1e-9))
+    return (1 + exceed) / (1 + usable.size), int(usable.size)
+
+
+def partial_fits(data: lik.Data, concurrent_theta: np.ndarray, start_logit: float = 3.0, progress=None) -> np.ndarray:
+    """(R,) maximum partial-model log-likelihood of R data sets, over the choice of the partial
+    population, each by batched Newton from its concurrent maximum (R, 2k) and one logit
+    start: under the concurrent null the fraction is 1, so one start near that boundary is
+    enough. Equal to ``mle._fit_other_model(..., "partial", theta, logit_starts=(3.0,))`` on
+    each data set (tests/test_compare.py)."""
+    from .optimize import newton_maximise_batch
+
+    R, k = data.y.shape[0], data.k
+    best = np.full(R, -np.inf)
+    start = np.concatenate([concurrent_theta, np.full((R, 1), start_logit)], axis=1)
+    for a in range(k):
+        lower, upper = lik.Model("partial", k, a).bounds()
+
+        def derivatives(theta, rows, a=a):
+            sub = lik.Data(data.y[rows], data.failed[rows], data.candidates[rows])
+            return lik.partial_derivatives_batch(sub, theta, a)
+
+        _, ll, _ = newton_maximise_batch(derivatives, start, lower=lower, upper=upper, score_tol=1e-6)
+        best = np.maximum(best, ll)
+        if progress is not None:
+            progress(a)
+    return best
 
 
 SINGLE_TEST = "bootstrap likelihood ratio against the better of concurrent and exclusive populations"

@@ -11,12 +11,15 @@ import numpy as np
 from . import likelihood as lik
 
 
-def weighted_weibull_mle(y: np.ndarray, failed: np.ndarray, weight: np.ndarray, iterations: int = 60):
+def weighted_weibull_mle(y: np.ndarray, failed: np.ndarray, weight: np.ndarray, iterations: int = 60,
+                         log_modulus_start: np.ndarray | None = None):
     """Weibull MLE with specimen weights (exposure) along the last axis.
 
     Maximises Σ_i w_i [δ_i ln f(σ_i) + (1 − δ_i) ln S(σ_i)]: the modulus solves
     Σ w e^{mx} x / Σ w e^{mx} − Σ wδ x / Σ wδ − 1/m = 0 (x = ln σ − max ln σ, increasing in
-    m), then σθ follows in closed form. y, failed, weight: (..., N). Returns (ln m, ln σθ)."""
+    m), then σθ follows in closed form. y, failed, weight: (..., N). Returns (ln m, ln σθ).
+    ``log_modulus_start`` (...,): where Newton starts (EM passes its last M-step's); the
+    bisection bracket keeps any start safe."""
     top = y.max(axis=-1, keepdims=True)
     x = y - top
     wf = weight * failed
@@ -25,7 +28,10 @@ def weighted_weibull_mle(y: np.ndarray, failed: np.ndarray, weight: np.ndarray, 
     lo = np.full(xbar.shape, lik.LOG_MODULUS_MIN)
     hi = np.full(xbar.shape, lik.LOG_MODULUS_MAX)
     var = (wf * (x - xbar[..., None]) ** 2).sum(axis=-1) / r
-    u = np.clip(np.log(1.2825 / np.sqrt(np.maximum(var, 1e-12))), lo, hi)
+    if log_modulus_start is None:
+        u = np.clip(np.log(1.2825 / np.sqrt(np.maximum(var, 1e-12))), lo, hi)
+    else:
+        u = np.clip(np.where(np.isfinite(log_modulus_start), log_modulus_start, 0.0), lo, hi)
     for _ in range(iterations):
         m = np.exp(u)
         e = weight * np.exp(m[..., None] * x)
@@ -67,11 +73,13 @@ def fit_exclusive_batch(data: lik.Data, iterations: int = 300, tol: float = 1e-9
     resp /= resp.sum(-1, keepdims=True)
     previous = np.full(R, -np.inf)
     loglik = previous
+    u = None
     for _ in range(iterations):
         fraction = np.clip(resp.mean(axis=1), 1e-12, None)
         yk = np.broadcast_to(data.y[:, None, :], (R, k, N))
         fk = np.broadcast_to(data.failed[:, None, :], (R, k, N))
-        u, v = weighted_weibull_mle(yk, fk, np.ascontiguousarray(np.transpose(resp, (0, 2, 1))))
+        u, v = weighted_weibull_mle(yk, fk, np.ascontiguousarray(np.transpose(resp, (0, 2, 1))),
+                                    log_modulus_start=u)
         joint = _joint(data, u, v, np.log(fraction))
         top = joint.max(-1, keepdims=True)
         e = np.exp(joint - top)

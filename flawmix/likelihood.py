@@ -409,7 +409,17 @@ def partial_pointwise(data: Data, log_modulus, log_scale, logit_fraction, partia
 def partial_derivatives(data: Data, theta: np.ndarray, partial_index: int):
     """Log-likelihood, gradient and Hessian of the partial model (one data set, no leading
     dims) at theta = [u_1..u_k, v_1..v_k, logit p]: the exact derivatives of
-    :func:`partial_pointwise` (tests check them against central differences).
+    :func:`partial_pointwise` (tests check them against central differences). One data set
+    of :func:`partial_derivatives_batch`.
+    """
+    one = Data(data.y[None], data.failed[None], data.candidates[None])
+    ll, grad, hess = partial_derivatives_batch(one, np.asarray(theta, dtype=float)[None], partial_index)
+    return float(ll[0]), grad[0], hess[0]
+
+
+def partial_derivatives_batch(data: Data, theta: np.ndarray, partial_index: int):
+    """(R,), (R, P), (R, P, P): log-likelihood, gradient and Hessian of the partial model for
+    R data sets (y (R, N)) at theta (R, P = 2k + 1).
 
     Each specimen's likelihood is −H_rest + ln Σ_s exp φ_s over its terms φ_s: a failure
     from j ≠ A gives ln h_j + ln(1 − p) and ln h_j + ln p − H_A, one from A gives
@@ -424,72 +434,79 @@ def partial_derivatives(data: Data, theta: np.ndarray, partial_index: int):
 
 def _partial_derivatives(data: Data, theta: np.ndarray, partial_index: int):
     k, a = data.k, partial_index
-    u, v, t = theta[:k], theta[k:2 * k], float(theta[2 * k])
-    m = np.exp(u)
+    u, v, t = theta[:, :k], theta[:, k:2 * k], theta[:, 2 * k]
+    m = np.exp(u)                                   # (R, k)
     y, F, C = data.y, data.failed, data.candidates
-    n, P = y.size, 2 * k + 1
-    z = m * (y[:, None] - v)                       # (N, k)
+    R, n = y.shape
+    P = 2 * k + 1
+    z = m[:, None, :] * (y[..., None] - v[:, None, :])   # (R, N, k)
     H = np.exp(z)
-    g = u - y[:, None] + z                          # ln h_j
+    g = u[:, None, :] - y[..., None] + z                 # ln h_j
     log_p, log_q = -np.logaddexp(0.0, -t), -np.logaddexp(0.0, t)
-    p, q = np.exp(log_p), np.exp(log_q)
+    p, q = np.exp(log_p), np.exp(log_q)                  # (R,)
     # term slots: 2j (ln h_j + ln q), 2j + 1 (ln h_j + ln p − H_A), 2k (ln q), 2k + 1 (ln p − H_A)
     S = 2 * k + 2
-    phi = np.full((n, S), -np.inf)
-    fail_j = F[:, None] & C
+    phi = np.full((R, n, S), -np.inf)
+    fail_j = F[..., None] & C
     other = np.arange(k) != a
-    phi[:, 0:2 * k:2] = np.where(fail_j & other, g + log_q, -np.inf)
-    phi[:, 1:2 * k:2] = np.where(fail_j, g + log_p - H[:, [a]], -np.inf)
-    phi[:, 2 * k] = np.where(F, -np.inf, log_q)
-    phi[:, 2 * k + 1] = np.where(F, -np.inf, log_p - H[:, a])
-    top = phi.max(axis=1, keepdims=True)
+    log_p_survive_a = log_p[:, None] - H[..., a]         # (R, N)
+    phi[..., 0:2 * k:2] = np.where(fail_j & other, g + log_q[:, None, None], -np.inf)
+    phi[..., 1:2 * k:2] = np.where(fail_j, g + log_p_survive_a[..., None], -np.inf)
+    phi[..., 2 * k] = np.where(F, -np.inf, log_q[:, None])
+    phi[..., 2 * k + 1] = np.where(F, -np.inf, log_p_survive_a)
+    top = phi.max(axis=-1, keepdims=True)
     e = np.exp(phi - top)
-    total = e.sum(axis=1, keepdims=True)
+    total = e.sum(axis=-1, keepdims=True)
     w = e / total
-    ll = float(np.sum(top[:, 0] + np.log(total[:, 0])) - np.sum(H[:, other]))
+    ll = np.sum(top[..., 0] + np.log(total[..., 0]), axis=-1) - np.sum(H[..., other], axis=(-2, -1))
     # gradients of the pieces, in the full parameter vector
     iu, iv, it = np.arange(k), k + np.arange(k), 2 * k
-    grad_phi = np.zeros((n, S, P))
+    grad_phi = np.zeros((R, n, S, P))
     for j in range(k):
         for s in (2 * j, 2 * j + 1):   # ln h_j: (1 + z_j, −m_j)
-            grad_phi[:, s, iu[j]] += 1.0 + z[:, j]
-            grad_phi[:, s, iv[j]] -= m[j]
+            grad_phi[..., s, iu[j]] += 1.0 + z[..., j]
+            grad_phi[..., s, iv[j]] -= m[:, [j]]
     for s in list(range(1, 2 * k, 2)) + [2 * k + 1]:   # ln p − H_A
-        grad_phi[:, s, it] += q
-        grad_phi[:, s, iu[a]] -= H[:, a] * z[:, a]
-        grad_phi[:, s, iv[a]] += m[a] * H[:, a]
+        grad_phi[..., s, it] += q[:, None]
+        grad_phi[..., s, iu[a]] -= H[..., a] * z[..., a]
+        grad_phi[..., s, iv[a]] += m[:, [a]] * H[..., a]
     for s in list(range(0, 2 * k, 2)) + [2 * k]:       # ln q
-        grad_phi[:, s, it] -= p
+        grad_phi[..., s, it] -= p[:, None]
     grad_phi = np.where(np.isfinite(phi)[..., None], grad_phi, 0.0)
-    mean = np.einsum("ns,nsp->np", w, grad_phi)
-    grad = mean.sum(axis=0)
-    hess = np.einsum("ns,nsp,nsq->pq", w, grad_phi, grad_phi) - mean.T @ mean
+    weighted = w[..., None] * grad_phi
+    mean = weighted.sum(axis=2)                          # (R, N, P)
+    grad = mean.sum(axis=1)
+    # Σ_n Σ_s w ∇φ ∇φᵀ − Σ_n mean meanᵀ, as batched matrix products
+    hess = (np.swapaxes(weighted.reshape(R, n * S, P), 1, 2) @ grad_phi.reshape(R, n * S, P)
+            - np.swapaxes(mean, 1, 2) @ mean)
     # Σ w_s ∇²φ_s: ln h_j in the terms of j, −H_A in those with ln p, and ln p / ln q (−pq)
-    w_h = w[:, 0:2 * k:2] + w[:, 1:2 * k:2]         # (N, k) weight of the terms with ln h_j
-    hess[iu, iu] += (w_h * z).sum(axis=0)
-    hess[iu, iv] -= m * w_h.sum(axis=0)
-    hess[iv, iu] -= m * w_h.sum(axis=0)
+    w_h = w[..., 0:2 * k:2] + w[..., 1:2 * k:2]         # (R, N, k) weight of the terms with ln h_j
+    hess[:, iu, iu] += (w_h * z).sum(axis=1)
+    hess[:, iu, iv] -= m * w_h.sum(axis=1)
+    hess[:, iv, iu] -= m * w_h.sum(axis=1)
+
     def minus_hazard(j, weight):
         """Σ weight·∇²(−H_j) in (u_j, v_j), added to the Hessian."""
-        uu, uv, vv = _hazard_hessian(H[:, j], z[:, j], m[j], weight)
-        hess[iu[j], iu[j]] -= uu
-        hess[iu[j], iv[j]] -= uv
-        hess[iv[j], iu[j]] -= uv
-        hess[iv[j], iv[j]] -= vv
+        uu, uv, vv = _hazard_hessian(H[..., j], z[..., j], m[:, j], weight)
+        hess[:, iu[j], iu[j]] -= uu
+        hess[:, iu[j], iv[j]] -= uv
+        hess[:, iv[j], iu[j]] -= uv
+        hess[:, iv[j], iv[j]] -= vv
 
-    minus_hazard(a, w[:, 1:2 * k:2].sum(axis=1) + w[:, 2 * k + 1])   # −H_A in the terms with ln p
-    hess[it, it] -= p * q * n   # ln p and ln q both have −pq, and each specimen's weights sum to one
+    minus_hazard(a, w[..., 1:2 * k:2].sum(axis=-1) + w[..., 2 * k + 1])   # −H_A in the terms with ln p
+    hess[:, it, it] -= p * q * n   # ln p and ln q both have −pq, and each specimen's weights sum to one
     for j in np.flatnonzero(other):   # −H_rest over every specimen
-        grad[iu[j]] -= np.sum(H[:, j] * z[:, j])
-        grad[iv[j]] += m[j] * np.sum(H[:, j])
+        grad[:, iu[j]] -= np.sum(H[..., j] * z[..., j], axis=-1)
+        grad[:, iv[j]] += m[:, j] * np.sum(H[..., j], axis=-1)
         minus_hazard(j, 1.0)
     return ll, grad, hess
 
 
-def _hazard_hessian(H: np.ndarray, z: np.ndarray, m: float, weight):
-    """Σ weight·∇²H over specimens for H = exp(z), z = m (y − v), in (u = ln m, v):
+def _hazard_hessian(H: np.ndarray, z: np.ndarray, m, weight):
+    """Σ weight·∇²H over specimens (the last axis) for H = exp(z), z = m (y − v), in (u = ln m, v):
     (∂²/∂u², ∂²/∂u∂v, ∂²/∂v²) = (Σ w H z (1 + z), −m Σ w H (1 + z), m² Σ w H)."""
-    return (np.sum(weight * H * z * (1 + z)), -m * np.sum(weight * H * (1 + z)), m**2 * np.sum(weight * H))
+    return (np.sum(weight * H * z * (1 + z), axis=-1), -m * np.sum(weight * H * (1 + z), axis=-1),
+            m**2 * np.sum(weight * H, axis=-1))
 
 
 def derivatives(model: Model, data: Data, theta: np.ndarray):

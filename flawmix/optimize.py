@@ -115,6 +115,109 @@ def newton_maximise(
     return Optimum(theta, float(ll), gf, Hf, it, bool(converged))
 
 
+BatchDerivatives = Callable[[np.ndarray, np.ndarray], tuple[np.ndarray, np.ndarray, np.ndarray]]
+
+
+def newton_maximise_batch(
+    derivatives: BatchDerivatives,
+    theta0: np.ndarray,
+    *,
+    lower: np.ndarray,
+    upper: np.ndarray,
+    score_tol: float = 1e-10,
+    max_iter: int = 200,
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """:func:`newton_maximise` (without ties) of R independent problems at once.
+
+    Every row takes the same iterates as it would alone: its own Levenberg–Marquardt damping,
+    step cap, acceptance rule and stopping rule; only the derivative calls are shared.
+    ``derivatives(theta (R', P), rows (R',))`` gives (loglik (R',), gradient (R', P), Hessian
+    (R', P, P)) for the problems ``rows``. Returns (theta (R, P), loglik (R,), converged (R,)).
+    """
+    phi = np.array(theta0, dtype=float)     # unclipped iterates; theta is phi clipped to the bounds
+    theta = np.clip(phi, lower, upper)
+    R, P = theta.shape
+    ll, g, H = derivatives(theta, np.arange(R))
+    finite = _finite(ll, g, H)
+    ll = np.where(finite, ll, -np.inf)
+    done = ~finite
+    converged = np.zeros(R, bool)
+    damping = np.zeros(R)
+
+    def free_score(theta, g):
+        held = ((g > 0) & (theta >= upper - 1e-12)) | ((g < 0) & (theta <= lower + 1e-12))
+        return np.where(held, 0.0, g), held
+
+    for _ in range(max_iter):
+        score, held = free_score(theta, g)
+        size = np.max(np.abs(score), axis=1)
+        converged |= ~done & (size <= score_tol)
+        done |= converged
+        a = np.flatnonzero(~done)
+        if a.size == 0:
+            break
+        keep = ~held[a]
+        A = np.where(keep[:, :, None] & keep[:, None, :], -H[a], 0.0) + np.eye(P) * (~keep)[:, None, :]
+        scale2 = np.maximum(np.abs(np.diagonal(A, axis1=1, axis2=2)), 1e-300)
+        pending = np.ones(a.size, bool)
+        improved = np.zeros(a.size, bool)
+        for _ in range(40):
+            b = np.flatnonzero(pending)
+            if b.size == 0:
+                break
+            M = A[b] + damping[a[b], None, None] * (np.eye(P) * scale2[b, None, :])
+            L, definite = _cholesky(M)
+            step = np.full((b.size, P), np.nan)
+            if definite.any():
+                Ld = L[definite]
+                half = np.linalg.solve(Ld, score[a[b[definite]], :, None])
+                step[definite] = np.linalg.solve(np.swapaxes(Ld, 1, 2), half)[..., 0]
+            usable = np.all(np.isfinite(step), axis=1)
+            unusable = b[~usable]
+            damping[a[unusable]] = np.maximum(1e-6, damping[a[unusable]] * 10)
+            b, step = b[usable], step[usable]
+            if b.size == 0:
+                continue
+            step *= np.minimum(1.0, 2.0 / np.maximum(np.max(np.abs(step), axis=1, keepdims=True), 1e-300))
+            rows = a[b]
+            trial = np.clip(phi[rows] + step, lower, upper)
+            l_t, g_t, H_t = derivatives(trial, rows)
+            ok = _finite(l_t, g_t, H_t) & (l_t >= ll[rows] - 1e-12 * np.maximum(1.0, np.abs(ll[rows])))
+            took = rows[ok]
+            improved[b[ok]] = (l_t[ok] > ll[took]) | \
+                (np.max(np.abs(free_score(trial[ok], g_t[ok])[0]), axis=1) < size[took])
+            phi[took] += step[ok]
+            theta[took], ll[took], g[took], H[took] = trial[ok], l_t[ok], g_t[ok], H_t[ok]
+            damping[took] = np.where(damping[took] > 1e-8, damping[took] / 10, 0.0)
+            damping[rows[~ok]] = np.maximum(1e-6, damping[rows[~ok]] * 10)
+            pending[b[ok]] = False
+        stuck = a[~improved]
+        # nothing improves at machine precision: a maximum (or a bound) is reached
+        converged[stuck] = np.max(np.abs(free_score(theta[stuck], g[stuck])[0]), axis=1) <= \
+            np.maximum(score_tol, 1e-7 * np.maximum(1.0, np.abs(ll[stuck])))
+        done[stuck] = True
+    return theta, ll, converged
+
+
+def _cholesky(M: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Lower Cholesky factors of a stack (R, P, P) and where each exists (R,): the same test
+    as newton_maximise's (it passes matrices indefinite at rounding level, as LAPACK does)."""
+    try:
+        return np.linalg.cholesky(M), np.ones(M.shape[0], bool)
+    except np.linalg.LinAlgError:
+        L, ok = np.zeros_like(M), np.zeros(M.shape[0], bool)
+        for r in range(M.shape[0]):
+            try:
+                L[r], ok[r] = np.linalg.cholesky(M[r]), True
+            except np.linalg.LinAlgError:
+                pass
+        return L, ok
+
+
+def _finite(ll, g, H) -> np.ndarray:
+    return np.isfinite(ll) & np.all(np.isfinite(g), axis=1) & np.all(np.isfinite(H), axis=(1, 2))
+
+
 def chi2_cutoff(confidence: float, df: int = 1) -> float:
     """Half the χ² quantile: the drop in log-likelihood bounding a profile interval."""
     # scipy.stats.chi2.ppf is 2·gammaincinv(df/2, p); called directly it costs 0.4 µs, not 100

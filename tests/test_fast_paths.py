@@ -262,3 +262,27 @@ def test_big_data_subsample_start_reaches_the_maximum_of_the_em_start(rare, monk
         assert a.converged and b.converged
         np.testing.assert_allclose(a.theta, b.theta, rtol=0, atol=1e-9)
         assert a.loglik == pytest.approx(b.loglik, rel=1e-13)
+
+
+@pytest.mark.parametrize("k", [3, 4])
+def test_batched_partial_fits_of_the_boundary_test_equal_one_at_a_time(k):
+    # compare.partial_fits runs newton_maximise's iteration for every replicate and every
+    # choice of partial population at once; each row must end where newton_maximise alone
+    # ends from the same start (the general path the boundary test used before)
+    from flawmix.compare import partial_fits
+    from flawmix.simulate import Design, simulate
+
+    rng = np.random.default_rng(20 + k)
+    moduli, scales = np.array([5.0, 12.0, 8.0, 15.0][:k]), np.array([1.0, 0.95, 1.1, 1.0][:k])
+    sims = simulate(lik.Model("concurrent", k), moduli, scales, None,
+                    Design(np.where(rng.random(36) < 0.1, 0.9, np.inf), 0.25), 40, rng)
+    usable = np.flatnonzero(np.all((sims.candidates & sims.failed[..., None]).sum(axis=1) > 0, axis=1))
+    data = lik.Data(sims.y[usable], sims.failed[usable], sims.candidates[usable])
+    one_at_a_time, theta = [], []
+    for r in range(usable.size):
+        single = lik.Data(data.y[r], data.failed[r], data.candidates[r])
+        concurrent = mle._maximise(single)[0]
+        theta.append(concurrent.theta)
+        one_at_a_time.append(mle._fit_other_model(single, "partial", concurrent.theta, logit_starts=(3.0,))[0].loglik)
+    np.testing.assert_allclose(partial_fits(data, np.array(theta)), one_at_a_time, rtol=0, atol=1e-9)
+    assert len(one_at_a_time) >= 30

@@ -145,6 +145,25 @@ def test_partial_derivatives_equal_central_differences(k):
         np.testing.assert_allclose(H, Hg, rtol=0, atol=1e-8 * np.abs(H).max())
 
 
+def test_partial_derivatives_of_a_batch_equal_those_of_each_data_set():
+    # the batched form (replicate campaigns, one parameter set each) row by row equals the
+    # one-data-set call, which numerical_derivatives checks above
+    rng = np.random.default_rng(9)
+    k = 3
+    moduli, scales = np.array([5.0, 10.0, 15.0]), np.array([1.0, 1.05, 0.95])
+    design = Design(np.where(rng.random(30) < 0.3, 0.85, np.inf), 0.3)
+    sims = simulate(lik.Model("partial", k, 1), moduli, scales, [1.0, 0.6, 1.0], design, 6, rng)
+    theta = np.concatenate([np.log(moduli) + 0.1 * rng.standard_normal((6, k)), 0.05 * rng.standard_normal((6, k)),
+                            rng.normal(0.5, 1.0, (6, 1))], axis=1)
+    for a in range(k):
+        ll, g, H = lik.partial_derivatives_batch(sims, theta, a)
+        for r in range(6):
+            one = lik.partial_derivatives(lik.Data(sims.y[r], sims.failed[r], sims.candidates[r]), theta[r], a)
+            assert ll[r] == pytest.approx(one[0], rel=1e-13)
+            np.testing.assert_allclose(g[r], one[1], rtol=1e-12, atol=1e-12)
+            np.testing.assert_allclose(H[r], one[2], rtol=1e-12, atol=1e-12)
+
+
 def test_partial_likelihood_stays_exact_when_the_partial_population_is_far_past_its_scale():
     # The survival of the others used to be the total cumulative hazard less H_A: with H_A of
     # 1e20 only its rounding error was left (tens of log units a specimen), which fits climbed
