@@ -6,6 +6,7 @@ failed, and for each failure the set of populations that could have caused it.
 from __future__ import annotations
 
 import difflib
+import re
 from functools import cached_property
 from pathlib import Path
 from dataclasses import dataclass, field
@@ -28,6 +29,17 @@ SURVIVED_WORDS = {"survived", "survivor", "s", "runout", "run-out", "censored", 
 EXCLUDED_WORDS = {"excluded", "exclude", "invalid", "void", "discarded"}
 STRENGTH_NAMES = {"strength", "σf", "σ_f", "sigma_f", "fracture strength", "fracture stress", "failure stress"}
 COLUMNS = ("strength", "specimen", "origin", "status", "geometry")
+# headers a lab writes for the other known columns (compared after normalise_label, with any
+# bracketed note such as '(fractography)' or '[SEM]' dropped): common practice
+COLUMN_NAMES = {
+    "specimen": {"specimen", "specimen id", "specimen no", "specimen no.", "specimen number", "specimen name",
+                 "sample", "sample id", "sample no", "sample no.", "id"},
+    "origin": {"origin", "fracture origin", "failure origin", "origin type", "fracture origin type", "flaw type",
+               "flaw", "origin label"},
+    "status": {"status"},
+    "geometry": {"geometry"},
+}
+_COLUMN_OF = {name: column for column, names in COLUMN_NAMES.items() for name in names}
 POPULATION_SETTINGS = ("kind", "labels", "prior", "crack", "shape_factor")   # the last two: flawmix.fracture
 
 
@@ -293,7 +305,8 @@ def read_specimens(
     rows = _validate_rows(table, columns, unit)
     origin = rows["origin"]
     candidates, pops, readings = _map_origins(table, rows, pops, vocabulary)
-    warnings = [*_origin_warnings(readings, rows, populations is None, vocabulary),
+    warnings = [*_missing_column_warnings(table, columns),
+                *_origin_warnings(readings, rows, populations is None, vocabulary),
                 *plausibility_warning(rows["strength"], unit, table.source),
                 *_outlier_warnings(table, rows, columns["strength"])]
     used = rows["used"]
@@ -312,6 +325,7 @@ def _find_columns(table: RawTable) -> tuple[dict[str, int], str | None]:
     where_header = f"{table.source + ', ' if table.source else ''}" + \
         ("header" if table.row_word == "dataframe" else f"{table.row_word} {table.header_line} (the header)")
     names, header_unit, seen = {}, None, {}
+    taken = {normalise_label(c) for c in table.header} & set(COLUMNS)   # a column named exactly wins
     for j, cell in enumerate(table.header):
         name, unit_text = split_header_unit(cell)
         key = normalise_label(name)
@@ -323,6 +337,9 @@ def _find_columns(table: RawTable) -> tuple[dict[str, int], str | None]:
                 except FlawmixError as exc:
                     raise FlawmixError(f"{where_header}: column '{cell}': {exc}; or drop the unit from the header "
                                        "and give --unit") from None
+        elif (known := _COLUMN_OF.get(normalise_label(cell)) or _COLUMN_OF.get(key)) and known not in taken:
+            key = known                           # 'Origin (fractography)', 'Specimen ID'
+            taken.add(known)
         elif key != normalise_label(cell):
             key = normalise_label(cell)           # units on other columns stay part of their name
         if key == "":
@@ -351,6 +368,32 @@ def _find_columns(table: RawTable) -> tuple[dict[str, int], str | None]:
     if len(table.cells) == 0 or table.blank.all():
         raise FlawmixError(f"{where(table.source)}the table has no specimens; add one row per specimen")
     return names, header_unit
+
+
+_SURVIVOR_HINT = re.compile(r"\b(?:surviv\w*|run-?outs?|did not (?:fail|break)|no (?:failure|fracture)|unbroken)\b",
+                            re.IGNORECASE)
+
+
+def _missing_column_warnings(table: RawTable, columns: dict) -> list[str]:
+    """Warnings for a table whose origins or survivors may sit in a column not read as such:
+    without an 'origin' column every failure counts as of unidentified origin, and without a
+    'status' column every specimen counts as failed."""
+    others = [j for j, cell in enumerate(table.header) if cell and j not in columns.values()]
+    out = []
+    if "origin" not in columns and others:
+        names = ", ".join(f"'{table.header[j]}'" for j in others)
+        out.append(f"{where(table.source)}no 'origin' column (not read: {names}): every failure counts as of "
+                   "unidentified origin, one population; if a column holds the fracture origins, name it 'origin'")
+    if "status" not in columns:
+        for j in others:
+            text = table.cells[j].fillna("").astype(str)
+            hits = np.flatnonzero(text.str.contains(_SURVIVOR_HINT).to_numpy())
+            if hits.size:
+                rows = ", ".join(table.position(int(r)) for r in hits[:3]) + (" ..." if hits.size > 3 else "")
+                out.append(f"{table.at(int(hits[0]), table.header[j])}'{text.iloc[hits[0]].strip()}' ({hits.size} "
+                           f"record(s): {rows}) reads like a survivor, but the table has no 'status' column, so every "
+                           "specimen counts as failed; add a 'status' column (failed / survived / excluded)")
+    return out
 
 
 def _resolve_unit(table: RawTable, columns: dict, header_unit: str | None, unit: str | None) -> str:

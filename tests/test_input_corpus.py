@@ -119,6 +119,16 @@ CASES = [
                                                 "name the failure-stress column 'strength'")),
     Case("header/unnamed_column_with_values.csv", **err("line 3", "column '#3'", "no name in the header",
                                                         "name the column or remove the value")),
+    # the names a lab writes: 'Specimen No.', 'Origin (fractography)' (a bracketed note dropped)
+    Case("header/lab_names.csv", **ok(**BASE)),
+    # origins in a column not named as such: read as one population, and said so
+    Case("header/origin_column_unnamed.csv",
+         **ok(("no 'origin' column (not read: 'Bruchursprung')", ), n=5, failed=5, survived=0, unidentified=5,
+              ambiguous=0, populations=("all",))),
+    # a survivor written in a remarks column, without a status column: counted as failed, and said so
+    Case("header/survivor_in_remarks.csv",
+         **ok(("line 8, column 'remarks': 'survived, no fracture' (1 record(s): line 8) reads like a survivor",),
+              n=7, failed=7, survived=0, unidentified=2, ambiguous=0, populations=("inclusion", "pore"))),
     Case("header/trailing_comma_on_header_and_rows.csv",
          **ok(n=3, failed=3, survived=0, unidentified=0, ambiguous=0, populations=("inclusion", "pore"))),
     # ---- empty and near-empty ---------------------------------------------------------------
