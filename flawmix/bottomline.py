@@ -98,8 +98,8 @@ def dominance_changes(moduli, scales, names, lo: float, hi: float) -> list[dict[
 
 def _crossover_text(changes, unit: str) -> str:
     """Where the dominating population changes, if it does."""
-    return "".join(f"; above {fmt.stress(c['stress'])} {unit} '{c['above']}' takes over from '{c['below']}'"
-                   for c in changes)
+    return "".join(f"; above {fmt.stress(c['stress'])} {unit} '{c['above']}' takes over from '{c['below']}' "
+                   "(the larger share of the failure probability)" for c in changes)
 
 
 def model_choice_text(result, comparison=None) -> str:
@@ -112,7 +112,12 @@ def model_choice_text(result, comparison=None) -> str:
             # the fit shown still separates the flaw types: say so, or the line contradicts itself
             return (f"Model comparison: {first[0].lower()}{first[1:]}. The fit here still separates the flaw "
                     f"types ('{result.model}' populations); one pooled Weibull population is not shown to fit worse.")
-        return f"Model: '{result.model}' populations. {first}."
+        text = f"Model: '{result.model}' populations. {first}."
+        chosen = getattr(comparison, "preferred", result.model)
+        if chosen not in (result.model, "single"):
+            text += (f" The comparison's choice is '{chosen}'; the estimates here are under '{result.model}' "
+                     f"(flawmix fit --model {chosen} for that model's).")
+        return text
     tests = [t for t in result.tests if t.name == "common-modulus"]
     if tests:
         t = tests[0]

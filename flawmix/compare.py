@@ -274,13 +274,16 @@ def compare(
                                         "the boundary fraction = 1, so χ² does not apply)",
                                         "Null: every specimen carries every population."))
 
-    verdict = _verdict(table, order, bayes, bayes_fits, specimens)
+    verdict, preferred = _verdict(table, order, bayes, bayes_fits, specimens)
     if single_test is not None:
         several = rejects(single_test.p_value)
-        preferred = next(n for n in order if n != "single") if several else "single"
+        if several and preferred == "single":
+            preferred = next(n for n in order if n != "single")
+        elif not several:
+            preferred = "single"
         verdict = (population_count_verdict(single_test.p_value, SINGLE_TEST) + " "
-                   + (f"Among the models with several populations '{preferred}' ranks first. " if several else
-                      _single_alternatives_note(tests))
+                   + (f"Among the models with several populations the choice is '{preferred}' (scores below). "
+                      if several else _single_alternatives_note(tests))
                    + "Scores: " + verdict)
     if excluded:
         verdict += (f" Not ranked: {', '.join(repr(n) for n in excluded)} (degenerate maximum likelihood; "
@@ -304,10 +307,13 @@ def _single_alternatives_note(tests) -> str:
             "suggestive, not established. ")
 
 
-def _verdict(table, order, bayes, bayes_fits, specimens) -> str:
+def _verdict(table, order, bayes, bayes_fits, specimens) -> tuple[str, str]:
+    """The scores' verdict and the model it chooses: the best, or the simpler of the best two
+    when the data cannot tell them apart."""
     if len(order) == 1:
-        return "Only one population is defined, so there is nothing to compare."
+        return "Only one population is defined, so there is nothing to compare.", order[0]
     best, second = order[0], order[1]
+    choice = best
     if bayes:
         a = np.asarray(bayes_fits[best].extras["elpd_loo_pointwise"])
         b = np.asarray(bayes_fits[second].extras["elpd_loo_pointwise"])
@@ -324,6 +330,7 @@ def _verdict(table, order, bayes, bayes_fits, specimens) -> str:
         text = f"By AIC the '{best}' model is preferred over '{second}' by {delta:.1f}: {words}."
     if words == "no real preference":
         simpler = min((best, second), key=lambda n: table.loc[n, "n_parameters"])
+        choice = simpler
         text += (f" The data cannot tell these two apart; prefer the simpler ('{simpler}'), and test more "
                  "specimens (or identify more origins) if the choice matters.")
     if "single" not in (best, second) and "single" in table.index:
@@ -340,4 +347,4 @@ def _verdict(table, order, bayes, bayes_fits, specimens) -> str:
     bad = int(table.get("pareto_k_bad", pd.Series(dtype=float)).fillna(0).max()) if bayes else 0
     if bad:
         text += f" Some PSIS-LOO estimates are unreliable (Pareto k > 0.7 for up to {bad} specimens)."
-    return text
+    return text, choice

@@ -231,7 +231,7 @@ def failure_share_plot(result, ax=None, coupon=None, component=None, component_n
     ax.set_xlim(float(np.min(stresses)), float(np.max(stresses)))
     _stress_axis(ax, result.unit)
     ax.set_ylim(-0.02, 1.02)
-    ax.set_ylabel("share of failures at this stress")
+    ax.set_ylabel("share of failures at this stress\n(hazard rate)")
     ax.grid(True, color="#dddddd", lw=0.6)
     ax.legend(fontsize=8)
     ax.set_title("Which flaw population causes failures, by stress", fontsize=10)

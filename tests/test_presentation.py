@@ -205,3 +205,19 @@ def test_bottom_line_model_sentence_does_not_contradict_a_one_population_verdict
     text = model_choice_text(result, one)
     assert text.startswith("Model comparison: one population is enough") and "still separates" in text
     assert model_choice_text(result, several).startswith("Model: 'concurrent' populations. Several flaw populations")
+
+
+def test_bottom_line_names_the_comparisons_choice_when_the_estimates_are_under_another_model():
+    # compare chose 'partial' but the report's estimates are concurrent: the line says both
+    from types import SimpleNamespace
+
+    from flawmix.bottomline import model_choice_text
+    from flawmix.evidence import population_count_verdict
+
+    result = SimpleNamespace(model="concurrent", tests=[], populations=[1, 2])
+    verdict = population_count_verdict(0.001, "a test") + " Scores: ..."
+    other = SimpleNamespace(verdict=verdict, preferred="partial")
+    same = SimpleNamespace(verdict=verdict, preferred="concurrent")
+    assert "The comparison's choice is 'partial'" in model_choice_text(result, other)
+    assert "--model partial" in model_choice_text(result, other)
+    assert "choice is" not in model_choice_text(result, same)
