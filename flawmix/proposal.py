@@ -24,6 +24,7 @@ SCALE_INFLATION = 1.2       # proposal spread against the normal approximation
 PARETO_K_LIMIT = 0.5        # importance weights with k <= 0.5 have finite variance (PSIS practice)
 PILOT_DRAWS = 2000
 ADAPT_ROUNDS = 2            # refits of the t to its own pilot's weighted draws
+EXTRA_ROUNDS = 4            # further refits while the best pilot's Pareto k is still above the limit
 
 
 class MultivariateT:
@@ -121,18 +122,21 @@ def from_mode(mode: np.ndarray, hessian: np.ndarray, modulus_index, scale_index)
 
 def fitted(mode, hessian, modulus_index, scale_index, log_prob, rng):
     """(proposal, pilot draws, log weights, Pareto k): the t from the mode refitted
-    ADAPT_ROUNDS times to its pilot; of all rounds, the one whose pilot has the largest
-    importance ESS. None without a usable start."""
+    ADAPT_ROUNDS times to its pilot, and up to EXTRA_ROUNDS more while the best pilot's
+    Pareto k is above PARETO_K_LIMIT (a posterior far from the mode, e.g. a mixture model
+    whose maximum likelihood is degenerate, takes a few more refits to reach); of all rounds,
+    the one whose pilot has the largest importance ESS. None without a usable start."""
     proposal = from_mode(mode, hessian, modulus_index, scale_index)
     if proposal is None:
         return None
     best, best_ess = None, -1.0
-    for round_ in range(ADAPT_ROUNDS + 1):
+    for round_ in range(ADAPT_ROUNDS + EXTRA_ROUNDS + 1):
         draws, log_weights, k = pilot(proposal, log_prob, rng)
         ess = importance_ess(log_weights)
         if ess > best_ess:
             best, best_ess = (proposal, draws, log_weights, k), ess
-        if round_ == ADAPT_ROUNDS or not np.isfinite(k):
+        if round_ >= ADAPT_ROUNDS and best[3] <= PARETO_K_LIMIT or round_ == ADAPT_ROUNDS + EXTRA_ROUNDS \
+                or not np.isfinite(k):
             break
         proposal = proposal.refit(draws, log_weights)
         if proposal is None:

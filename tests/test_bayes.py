@@ -310,3 +310,30 @@ def test_low_acceptance_of_the_independence_proposal_falls_back_to_de_moves(monk
     assert r.extras["burn_in"] >= 500
     u, cdf_u, *_ = _grid_posterior_cdf(s)
     _assert_matches_exact(np.log(r.draws.moduli[:, 0]), u, cdf_u, r.extras["diagnostics"]["ess_bulk_min"])
+
+
+def test_proposal_keeps_refitting_while_the_pilot_weights_are_heavy_tailed(monkeypatch):
+    # a mode far from the posterior (as when a mixture model's maximum likelihood is
+    # degenerate): the two standard refits leave Pareto k above the limit, the extra rounds
+    # bring it under, and the fit returned is still the round with the largest importance ESS
+    from scipy import stats
+
+    from flawmix import proposal as P
+
+    target = stats.multivariate_normal(mean=[0.0, 0.0], cov=[[1.0, 0.3], [0.3, 1.0]])   # in (ln m, ln σθ)
+    mode, hessian = np.array([2.0, -2.0]), -np.eye(2) / 0.2 ** 2
+
+    def run():
+        return P.fitted(mode, hessian, [0], [1], target.logpdf, np.random.default_rng(1))
+
+    monkeypatch.setattr(P, "EXTRA_ROUNDS", 0)
+    assert run()[3] > P.PARETO_K_LIMIT           # two refits are not enough here
+    monkeypatch.setattr(P, "EXTRA_ROUNDS", 4)
+    proposal, draws, log_weights, k = run()
+    assert k <= P.PARETO_K_LIMIT
+    ess = P.importance_ess(log_weights)
+    assert ess > 200
+    # the weighted pilot recovers the target's mean (importance sampling, 2000 draws)
+    w = np.exp(log_weights - log_weights.max())
+    mean = (w[:, None] * draws).sum(0) / w.sum()
+    np.testing.assert_allclose(mean, [0.0, 0.0], atol=4 / np.sqrt(ess))
