@@ -57,6 +57,38 @@ def _independence_setup(theta_mle, hessian, log_prob, rng, walkers, modulus_inde
     return moves, _proposal.resample(draws, log_weights, rng, walkers)
 
 
+def _posterior_mode(log_prob, theta, lower, upper):
+    """(mode, Hessian) of the log posterior: L-BFGS-B from ``theta`` pulled inside the
+    sampler's box, the gradient and then the Hessian by central differences of the batched
+    ``log_prob``. For a second try at the independence proposal when the maximum-likelihood
+    mode misleads it (a degenerate mixture maximum, a modulus beyond the sampler's bound);
+    None when no finite start or no finite Hessian."""
+    from scipy import optimize as _optimize
+
+    lo, hi = lower + 1e-6, upper - 1e-6
+    start = np.clip(theta, lower + 0.05, upper - 0.05)
+    if not np.isfinite(log_prob(start[None])[0]):
+        return None
+    h = 1e-5
+    eye = np.eye(start.size) * h
+
+    def negative(x):
+        values = log_prob(np.vstack([x, x + eye, x - eye]))
+        if not np.all(np.isfinite(values)):
+            return (np.inf, np.zeros_like(x)) if not np.isfinite(values[0]) else \
+                (-values[0], np.zeros_like(x))
+        return -values[0], -(values[1:1 + x.size] - values[1 + x.size:]) / (2 * h)
+
+    with np.errstate(all="ignore"):
+        found = _optimize.minimize(negative, start, jac=True, method="L-BFGS-B",
+                                   bounds=list(zip(lo + 10 * h, hi - 10 * h)))
+        mode = found.x
+        _, _, hessian = lik.central_differences(log_prob, mode, 1e-4)
+    if not np.all(np.isfinite(hessian)):
+        return None
+    return mode, hessian
+
+
 def fit_bayes(
     specimens: Specimens,
     confidence: float = 0.90,
@@ -154,11 +186,17 @@ def fit_bayes(
     else:
         hess = lik.numerical_derivatives(spec, data, theta_mle)[2]
     start = _start_ball(rng, theta_mle, hess, n_walkers, lo_s, hi_s)
-    independent = None
+    independent, centred_on = None, None
     if moves is None:
         modulus_index = np.zeros(k, dtype=int) if common_modulus else np.arange(k)
         scale_index = np.arange(1, k + 1) if common_modulus else np.arange(k, 2 * k)
         independent = _independence_setup(theta_mle, hess, log_prob, rng, n_walkers, modulus_index, scale_index)
+        centred_on = "maximum likelihood"
+        if independent is None:   # a second try from the posterior's own mode
+            found = _posterior_mode(log_prob, theta_mle, lo_s, hi_s)
+            if found is not None:
+                independent = _independence_setup(*found, log_prob, rng, n_walkers, modulus_index, scale_index)
+                centred_on = "posterior mode"
     first_check = 1000
     asked = (burn, block)
     if independent is not None:   # a proposal the pilot trusts: start spread like the posterior
@@ -230,7 +268,9 @@ def fit_bayes(
 
     extras = {**{k_: v_ for k_, v_ in mle.extras.items() if k_ != "iterations"},
               "diagnostics": diag, "walkers": n_walkers, "steps": int(kept_steps), "burn_in": int(burn + steps // 5),
-              "draws": int(flat.shape[0]), "acceptance_fraction": acceptance, "seed": seed}
+              "draws": int(flat.shape[0]), "acceptance_fraction": acceptance, "seed": seed,
+              "moves": (f"independence t from the {centred_on}, with DE" if independent is not None
+                        else "differential evolution")}
     if loo:
         thin = max(1, kept_steps * n_walkers // LOO_DRAWS)
         sub = chain[::thin]

@@ -523,6 +523,16 @@ def derivatives(model: Model, data: Data, theta: np.ndarray):
 def numerical_derivatives(model: Model, data: Data, theta: np.ndarray, step: float = 1e-4):
     """Log-likelihood, gradient and Hessian by central differences, all parameter sets in
     one batched call (for the models without hand-written derivatives: see :func:`derivatives`)."""
+    chunk = max(1, int(2e7 // max(1, data.y.size * data.k)))
+
+    def values_at(pts):
+        return np.concatenate([model.loglik(data, pts[s:s + chunk]) for s in range(0, len(pts), chunk)])
+    return central_differences(values_at, theta, step)
+
+
+def central_differences(values_at, theta: np.ndarray, step: float = 1e-4):
+    """Value, gradient (five-point stencil) and Hessian of a function at ``theta`` by central
+    differences; ``values_at`` maps (S, P) points to (S,) values in one batched call."""
     theta = np.asarray(theta, dtype=float)
     P = theta.size
     eye = np.eye(P) * step
@@ -535,9 +545,7 @@ def numerical_derivatives(model: Model, data: Data, theta: np.ndarray, step: flo
         for j in range(i + 1, P):
             points += [theta + eye[i] + eye[j], theta + eye[i] - eye[j],
                        theta - eye[i] + eye[j], theta - eye[i] - eye[j]]
-    pts = np.array(points)
-    chunk = max(1, int(2e7 // max(1, data.y.size * data.k)))
-    values = np.concatenate([model.loglik(data, pts[s:s + chunk]) for s in range(0, len(pts), chunk)])
+    values = values_at(np.array(points))
     f0 = values[0]
     plus, minus = values[1:2 * P + 1:2], values[2:2 * P + 1:2]
     half_plus, half_minus = values[2 * P + 1:4 * P + 1:2], values[2 * P + 2:4 * P + 1:2]

@@ -527,7 +527,8 @@ def format_result(r: FitResult, warnings: bool = True) -> str:
     diag = r.extras.get("diagnostics")
     if diag:
         lines.append(f"sampler: R-hat max {diag['r_hat_max']:.4f}, bulk ESS min {diag['ess_bulk_min']:.0f}, "
-                     f"tail ESS min {diag['ess_tail_min']:.0f}; {r.extras.get('draws', 0)} draws")
+                     f"tail ESS min {diag['ess_tail_min']:.0f}; {r.extras.get('draws', 0)} draws"
+                     + (f" ({r.extras['moves']} moves)" if r.extras.get("moves") else ""))
     if "elpd_loo" in r.extras:
         lines.append(f"PSIS-LOO: elpd {r.extras['elpd_loo']:.2f} ± {r.extras['elpd_loo_se']:.2f}")
     if not r.converged and r.method == "mle":
