@@ -32,9 +32,25 @@ def weighted_weibull_mle(y: np.ndarray, failed: np.ndarray, weight: np.ndarray, 
         u = np.clip(np.log(1.2825 / np.sqrt(np.maximum(var, 1e-12))), lo, hi)
     else:
         u = np.clip(np.where(np.isfinite(log_modulus_start), log_modulus_start, 0.0), lo, hi)
+    u = _modulus_newton(x, weight, xbar, u, lo, hi, iterations)
+    m = np.exp(u)
+    s0 = np.maximum((weight * np.exp(m[..., None] * x)).sum(axis=-1), 1e-300)
+    v = top[..., 0] + np.log(s0 / r) / m
+    return u, v
+
+
+def _modulus_newton(x, weight, xbar, u, lo, hi, iterations):
+    """Safeguarded Newton on the weighted modulus equation, row by row over the leading axes:
+    a row stops once its step is below 1e-10 (the rest go on, on a compacted copy)."""
+    shape = u.shape
+    n = x.shape[-1]
+    x, weight = np.broadcast_to(x, weight.shape).reshape(-1, n), weight.reshape(-1, n)
+    xbar, u, lo, hi = (np.broadcast_to(a, shape).reshape(-1).copy() for a in (xbar, u, lo, hi))
+    out = u.copy()
+    rows = np.arange(u.size)
     for _ in range(iterations):
         m = np.exp(u)
-        e = weight * np.exp(m[..., None] * x)
+        e = weight * np.exp(m[:, None] * x)
         s0 = np.maximum(e.sum(axis=-1), 1e-300)
         mean = (e * x).sum(axis=-1) / s0
         second = (e * x * x).sum(axis=-1) / s0
@@ -43,12 +59,13 @@ def weighted_weibull_mle(y: np.ndarray, failed: np.ndarray, weight: np.ndarray, 
         step = np.clip(-g / (m * (second - mean * mean) + 1.0 / m), -1.0, 1.0)
         new = u + step
         u = np.where((new < lo) | (new > hi), 0.5 * (lo + hi), new)
-        if np.max(np.abs(step)) < 1e-10:
+        out[rows] = u
+        going = np.abs(step) >= 1e-10
+        if not going.any():
             break
-    m = np.exp(u)
-    s0 = np.maximum((weight * np.exp(m[..., None] * x)).sum(axis=-1), 1e-300)
-    v = top[..., 0] + np.log(s0 / r) / m
-    return u, v
+        if not going.all():
+            rows, x, weight, xbar, u, lo, hi = (a[going] for a in (rows, x, weight, xbar, u, lo, hi))
+    return out.reshape(shape)
 
 
 def _joint(data: lik.Data, u, v, log_fraction):

@@ -107,6 +107,23 @@ def test_weighted_weibull_fit_with_unit_weights_matches_scipy():
     assert float(u) == pytest.approx(ref[0], abs=1e-5) and float(v) == pytest.approx(ref[1], abs=1e-6)
 
 
+def test_weighted_weibull_fits_of_a_batch_equal_each_row_fitted_alone():
+    # rows stop one by one (the rest go on, compacted): each row's fit is the one it gets alone,
+    # also for rows that need many more Newton steps than the others (steep, few failures)
+    from flawmix.exclusive_batch import weighted_weibull_mle
+    rng = np.random.default_rng(10)
+    R, k, n = 40, 3, 30
+    m = rng.uniform(2.0, 60.0, (R, k, 1))
+    y = np.log(500.0) + np.log(rng.weibull(1.0, (R, k, n))) / m
+    failed = rng.random((R, k, n)) < 0.8
+    weight = rng.uniform(0.0, 1.0, (R, k, n))
+    u, v = weighted_weibull_mle(y, failed, weight)
+    for r in range(R):
+        for j in range(k):
+            u1, v1 = weighted_weibull_mle(y[r, j], failed[r, j], weight[r, j])
+            assert u[r, j] == pytest.approx(float(u1), abs=1e-12) and v[r, j] == pytest.approx(float(v1), abs=1e-12)
+
+
 def test_verdict_leads_with_the_bootstrap_test_and_its_words_match_its_p_value():
     from flawmix.evidence import evidence_words, rejects
     rng = np.random.default_rng(10)
