@@ -165,8 +165,6 @@ def whole_process_targets(quick, only):
         for name, command, target in commands:
             if only and not any(word in name for word in only):
                 continue
-            if name.startswith("report") and quick and not only:
-                continue   # about 100 CPU s: run it with --only report, or without --quick
             cpu = process_cpu(command, runs if not name.startswith(("demo", "compare", "report")) else 1)
             if target is None:   # an absolute target: an answer within 10 CPU s
                 rows.append((name + " (CPU s)", cpu, "target", 10.0, 10.0 / cpu, 1))
