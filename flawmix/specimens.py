@@ -325,7 +325,7 @@ def _find_columns(table: RawTable) -> tuple[dict[str, int], str | None]:
     where_header = f"{table.source + ', ' if table.source else ''}" + \
         ("header" if table.row_word == "dataframe" else f"{table.row_word} {table.header_line} (the header)")
     names, header_unit, seen = {}, None, {}
-    taken = {normalise_label(c) for c in table.header} & set(COLUMNS)   # a column named exactly wins
+    exact = {normalise_label(c) for c in table.header} & set(COLUMNS)   # a column named exactly wins
     for j, cell in enumerate(table.header):
         name, unit_text = split_header_unit(cell)
         key = normalise_label(name)
@@ -337,9 +337,9 @@ def _find_columns(table: RawTable) -> tuple[dict[str, int], str | None]:
                 except FlawmixError as exc:
                     raise FlawmixError(f"{where_header}: column '{cell}': {exc}; or drop the unit from the header "
                                        "and give --unit") from None
-        elif (known := _COLUMN_OF.get(normalise_label(cell)) or _COLUMN_OF.get(key)) and known not in taken:
-            key = known                           # 'Origin (fractography)', 'Specimen ID'
-            taken.add(known)
+        elif (known := _COLUMN_OF.get(normalise_label(cell)) or _COLUMN_OF.get(key)) and known not in exact:
+            key = known                           # 'Origin (fractography)', 'Specimen ID'; two such
+                                                  # columns for one name are the duplicate below
         elif key != normalise_label(cell):
             key = normalise_label(cell)           # units on other columns stay part of their name
         if key == "":

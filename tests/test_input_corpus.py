@@ -121,6 +121,9 @@ CASES = [
                                                         "name the column or remove the value")),
     # the names a lab writes: 'Specimen No.', 'Origin (fractography)' (a bracketed note dropped)
     Case("header/lab_names.csv", **ok(**BASE)),
+    # two columns a lab might name for the origins: which one is meant is the user's call
+    Case("header/two_origin_like_columns.csv", **err("line 1 (the header)", "columns 4 ('Fracture origin') and 5 "
+                                                     "('Origin (SEM)') are both 'origin'", "rename or remove one")),
     # origins in a column not named as such: read as one population, and said so
     Case("header/origin_column_unnamed.csv",
          **ok(("no 'origin' column (not read: 'Bruchursprung')", ), n=5, failed=5, survived=0, unidentified=5,
