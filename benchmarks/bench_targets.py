@@ -23,6 +23,8 @@ import pandas as pd
 from scipy import optimize, stats
 
 ROOT = Path(__file__).resolve().parents[1]
+# four concurrent populations whose mixture maxima are degenerate (see tests/data/README.md)
+FOUR = ROOT / "tests" / "data" / "four-populations.csv"
 sys.path.insert(0, str(ROOT))
 import flawmix as fm  # noqa: E402
 
@@ -126,21 +128,6 @@ def many_labels_table(folder):
     return path
 
 
-def four_population_table(folder):
-    """Four concurrent populations, N = 55, 15 % of origins not determined: a table whose
-    partial and exclusive maximum-likelihood fits are degenerate (the same draw as the slow test
-    in tests/test_bayes.py)."""
-    rng = np.random.default_rng(0)
-    k, n = rng.integers(3, 5), int(rng.integers(30, 70))
-    pops = [(float(rng.uniform(4, 16)), float(rng.uniform(400, 600))) for _ in range(k)]
-    d = np.stack([s * rng.weibull(m, n) for m, s in pops], 1)
-    origin = np.array([f"f{j}" for j in d.argmin(1)], dtype=object)
-    origin[rng.random(n) < 0.15] = "n.d."
-    path = Path(folder) / "four_populations.csv"
-    pd.DataFrame({"strength": d.min(1), "origin": origin}).to_csv(path, index=False)
-    return path
-
-
 def whole_process_targets(quick, only):
     """CPU seconds of CLI commands against the import floor, in the same run."""
     runs = 1 if quick else 3
@@ -154,7 +141,7 @@ def whole_process_targets(quick, only):
             ("fit small.csv --json", py + ["fit", str(small), "--json"], 1.6),
             ("fit --method bayes, 2 pops, N=40", py + ["fit", str(forty), "--method", "bayes", "--json"], 10),
             ("compare --json, N=150", py + ["compare", str(big), "--json"], 20),
-            ("compare --json, 4 populations, N=55", py + ["compare", str(four_population_table(folder)), "--json"], 20),
+            ("compare --json, 4 populations, N=55", py + ["compare", str(FOUR), "--json"], 20),
             ("demo", py + ["demo", "--out", str(Path(folder) / "demo"), "--force"], 20),
             ("fit --json, 200 populations x 3 failures", py + ["fit", str(many_labels_table(folder)), "--json"], None),
             # defaults (Bayes included), the demo table without its study file: each label a population

@@ -12,7 +12,7 @@ import flawmix as fm
 from flawmix.bayes import fit_bayes
 from flawmix.pivots import complete_sample_pivots
 
-from conftest import simulate_campaign
+from conftest import DATA, simulate_campaign
 
 
 def _grid_posterior_cdf(strength, failed=None, n=1000):
@@ -368,14 +368,8 @@ def test_four_populations_whose_mixture_maxima_are_degenerate_sample_from_the_po
     # quantiles agree with a differential-evolution run's within Monte Carlo error
     import emcee
 
-    rng = np.random.default_rng(0)
-    k, n = rng.integers(3, 5), int(rng.integers(30, 70))
-    pops = [(float(rng.uniform(4, 16)), float(rng.uniform(400, 600))) for _ in range(k)]
-    d = np.stack([s * rng.weibull(m, n) for m, s in pops], 1)
-    origin = np.array([f"f{j}" for j in d.argmin(1)], dtype=object)
-    origin[rng.random(n) < 0.15] = "n.d."
-    sp = fm.read_specimens(pd.DataFrame({"strength": d.min(1), "origin": origin}))
-    assert k == 4
+    sp = fm.read_specimens(DATA / "four-populations.csv")
+    assert sp.candidates.shape == (55, 4)
     fast = fit_bayes(sp, model="partial", seed=0)
     assert fast.extras["moves"].startswith("independence t from the posterior mode")
     slow = fit_bayes(sp, model="partial", seed=0, moves=emcee.moves.DEMove())
