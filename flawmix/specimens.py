@@ -35,7 +35,7 @@ COLUMN_NAMES = {
     "specimen": {"specimen", "specimen id", "specimen no", "specimen no.", "specimen number", "specimen name",
                  "sample", "sample id", "sample no", "sample no.", "id"},
     "origin": {"origin", "fracture origin", "failure origin", "origin type", "fracture origin type", "flaw type",
-               "flaw", "origin label"},
+               "origin label"},   # not 'flaw': 'flaw (µm)' is a size
     "status": {"status"},
     "geometry": {"geometry"},
 }
