@@ -46,7 +46,7 @@ class Task:
         self.stream = stream or sys.stderr
         self.tty = bool(getattr(self.stream, "isatty", lambda: False)())
         self.start = time.monotonic()
-        self._last = -1e9
+        self._last = self.start     # the first count comes one interval in: a quick task prints none
         self._drawn = False
         self.done = 0
         if self.show and not self.tty:

@@ -110,6 +110,13 @@ def test_progress_bar_on_a_terminal_and_lines_in_a_pipe():
     quiet = io.StringIO()
     progress.Task("fitting", 3, show=False, stream=quiet).step(1)
     assert quiet.getvalue() == ""
+    # a quick task in a pipe: its start and its end, no count line within the first interval
+    quick = io.StringIO()
+    bar = progress.Task("refitting", 3, show=True, stream=quick)
+    for i in range(3):
+        bar.step(i + 1)
+    bar.close()
+    assert [line.split(":")[1].split()[0] for line in quick.getvalue().splitlines()] == ["started", "done"]
 
 
 def _options(parser):
