@@ -89,6 +89,20 @@ def _posterior_mode(log_prob, theta, lower, upper):
     return mode, hessian
 
 
+def _proposal_moves(theta_mle, hessian, log_prob, rng, walkers, k, common_modulus, lower, upper):
+    """(moves and starting ensemble, or None; what the proposal is centred on): the
+    independence proposal from the maximum-likelihood mode, else from the posterior's own mode."""
+    modulus_index = np.zeros(k, dtype=int) if common_modulus else np.arange(k)
+    scale_index = np.arange(1, k + 1) if common_modulus else np.arange(k, 2 * k)
+    found = _independence_setup(theta_mle, hessian, log_prob, rng, walkers, modulus_index, scale_index)
+    if found is not None:
+        return found, "maximum likelihood"
+    mode = _posterior_mode(log_prob, theta_mle, lower, upper)
+    if mode is not None:
+        found = _independence_setup(*mode, log_prob, rng, walkers, modulus_index, scale_index)
+    return found, "posterior mode"
+
+
 def fit_bayes(
     specimens: Specimens,
     confidence: float = 0.90,
@@ -188,15 +202,8 @@ def fit_bayes(
     start = _start_ball(rng, theta_mle, hess, n_walkers, lo_s, hi_s)
     independent, centred_on = None, None
     if moves is None:
-        modulus_index = np.zeros(k, dtype=int) if common_modulus else np.arange(k)
-        scale_index = np.arange(1, k + 1) if common_modulus else np.arange(k, 2 * k)
-        independent = _independence_setup(theta_mle, hess, log_prob, rng, n_walkers, modulus_index, scale_index)
-        centred_on = "maximum likelihood"
-        if independent is None:   # a second try from the posterior's own mode
-            found = _posterior_mode(log_prob, theta_mle, lo_s, hi_s)
-            if found is not None:
-                independent = _independence_setup(*found, log_prob, rng, n_walkers, modulus_index, scale_index)
-                centred_on = "posterior mode"
+        independent, centred_on = _proposal_moves(theta_mle, hess, log_prob, rng, n_walkers, k, common_modulus,
+                                                  lo_s, hi_s)
     first_check = 1000
     asked = (burn, block)
     if independent is not None:   # a proposal the pilot trusts: start spread like the posterior
