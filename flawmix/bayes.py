@@ -65,7 +65,6 @@ def _posterior_mode(log_prob, theta, lower, upper):
     None when no finite start or no finite Hessian."""
     from scipy import optimize as _optimize
 
-    lo, hi = lower + 1e-6, upper - 1e-6
     start = np.clip(theta, lower + 0.05, upper - 0.05)
     if not np.isfinite(log_prob(start[None])[0]):
         return None
@@ -81,7 +80,7 @@ def _posterior_mode(log_prob, theta, lower, upper):
 
     with np.errstate(all="ignore"):
         found = _optimize.minimize(negative, start, jac=True, method="L-BFGS-B",
-                                   bounds=list(zip(lo + 10 * h, hi - 10 * h)))
+                                   bounds=list(zip(lower + 1e-4, upper - 1e-4)))   # the stencil stays inside
         mode = found.x
         _, _, hessian = lik.central_differences(log_prob, mode, 1e-4)
     if not np.all(np.isfinite(hessian)):

@@ -109,7 +109,7 @@ def partial_fits(data: lik.Data, concurrent_theta: np.ndarray, start_logit: floa
     population, each by batched Newton from its concurrent maximum (R, 2k) and one logit
     start: under the concurrent null the fraction is 1, so one start near that boundary is
     enough. Equal to ``mle._fit_other_model(..., "partial", theta, logit_starts=(3.0,))`` on
-    each data set (tests/test_compare.py)."""
+    each data set (tests/test_fast_paths.py)."""
     from .optimize import newton_maximise_batch
 
     R, k = data.y.shape[0], data.k
